@@ -333,12 +333,13 @@ def thickness_sweep(indices, thicknesses_nm, coherent, film, film_thickness_nm, 
     R = np.empty((angles.size, dz.size, wl.size))
     T = np.empty_like(R) if (transmittance or need_back) else None
     coarse, fine = _thickness_tables(dz)
+    co = _sweep_coefficients(n, d, coherent, film, wl, angles, polarisation, T is not None)
     # Chunks of angles keep each temporary near a megabyte (cache-sized).
     step = max(1, (1 << 17) // max(dz.size * wl.size, 1))
     for a0 in range(0, angles.size, step):
         sl = slice(a0, a0 + step)
-        _sweep_chunk(R[sl], None if T is None else T[sl], n, d, coherent, film, coarse, fine, wl,
-                     angles[sl], polarisation)
+        _sweep_fill(R[sl], None if T is None else T[sl], {k: v[sl] for k, v in co.items()},
+                    coarse, fine, wl, polarisation)
     return R, (T if transmittance else None)
 
 
@@ -359,10 +360,10 @@ def _thickness_tables(dz):
     return dz, np.zeros(1)
 
 
-def _sweep_chunk(R, T, n, d, coherent, film, coarse, fine, wl, angles, polarisation):
-    """Fill R (and T) of shape (A, D, W) for a few angles (see :func:`thickness_sweep`)."""
-    beta = _beta(n[0][None, :], angles[:, None])  # (A, W)
-    q = normal_wavevectors(n, beta)                # each (A, W)
+def _sweep_coefficients(n, d, coherent, film, wl, angles, polarisation, want_t):
+    """Everything of the sweep that does not depend on the film thickness, shape (A, W)."""
+    beta = _beta(n[0][None, :], angles[:, None])
+    q = normal_wavevectors(n, beta)
     bounds = _split_groups(coherent)
     j = film + 1  # medium index of the film
     g = next(i for i in range(len(bounds) - 1) if bounds[i] < j < bounds[i + 1])
@@ -373,12 +374,36 @@ def _sweep_chunk(R, T, n, d, coherent, film, coarse, fine, wl, angles, polarisat
     ra, ta = _rouard(nu, qu, du, wl, polarisation)
     rab, tab = _rouard(nu[::-1], qu[::-1], du[::-1], wl, polarisation)
     rb, tb = _rouard(nl, ql, dl, wl, polarisation)
+    # With z = e^{2iδ}: r = r_a + t_a t_a′ r_b z / (1 − r_a′ r_b z) = (r_a + B z) / (1 + C z).
     C = -rab * rb
-    B = ta * tab * rb + ra * C
-    # z = E·F: E on the coarse grid (A, Dc, 1, W), F on the fine grid (A, 1, M, W).
+    co = {"k": 4j * np.pi * q[j] / wl, "ra": ra, "B": ta * tab * rb + ra * C, "C": C}
+    if not want_t:
+        return co
+    shape = q[j].shape
+    co.update(t2=np.abs(ta * tb) ** 2,
+              f_down=_transmittance(np.ones(shape), n[top], q[top], n[bottom], q[bottom], polarisation),
+              f_up=_transmittance(np.ones(shape), n[bottom], q[bottom], n[top], q[top], polarisation))
+    if all(coherent):
+        return co
+    rbb, tbb = _rouard(nl[::-1], ql[::-1], dl[::-1], wl, polarisation)
+    # r_back = r_b′ + t_b′ t_b r_a′ z / (1 − r_a′ r_b z): the same denominator.
+    co.update(rbb=rbb, Bb=tbb * tb * rab + rbb * C, tb2=np.abs(tbb * tab) ** 2)
+    for i, (a, b) in enumerate(zip(bounds[:-1], bounds[1:])):
+        if i != g:
+            for name, x in zip("R T Rb Tb".split(), _group_rt(n[a:b + 1], q[a:b + 1], d[a:b - 1], wl,
+                                                                   polarisation)):
+                co[f"g{i}_{name}"] = np.broadcast_to(x, shape)
+    for i, x in enumerate(_attenuations(n, q, d, wl, bounds)):
+        co[f"att{i}"] = np.broadcast_to(x, shape)
+    return co
+
+
+def _sweep_fill(R, T, co, coarse, fine, wl, polarisation):
+    """Fill R (and T) of shape (A, D, W) for a few angles (see :func:`thickness_sweep`)."""
     A, D, W = R.shape
     Dc, M = coarse.size, fine.size
-    k = (4j * np.pi * q[j] / wl)[:, None, None, :]
+    # z = E·F: E on the coarse grid (A, Dc, 1, W), F on the fine grid (A, 1, M, W).
+    k = co["k"][:, None, None, :]
     E = np.exp(k * coarse[None, :, None, None])
     F = np.exp(k * fine[None, None, :, None])
     Fr, Fi = np.ascontiguousarray(F.real), np.ascontiguousarray(F.imag)
@@ -388,7 +413,7 @@ def _sweep_chunk(R, T, n, d, coherent, film, coarse, fine, wl, angles, polarisat
     den, num, tmp = work
 
     def abs2_into(out, a, b):
-        """out = |a + b z|² = |a|² + |b|²|z|² + 2 Re(ā b z), in place."""
+        """out = |a + b z|² = |a|² + |b|²|z|² + 2 Re(ā b z), in place, viewed as (A, D, W)."""
         a = np.asarray(a)[:, None, None, :] if np.ndim(a) else a
         abE = np.conj(a) * b[:, None, None, :] * E
         b2E2 = (np.abs(b) ** 2)[:, None, None, :] * E2
@@ -403,8 +428,8 @@ def _sweep_chunk(R, T, n, d, coherent, film, coarse, fine, wl, angles, polarisat
             out += np.abs(a) ** 2
         return out.reshape(A, Dc * M, W)[:, :D]
 
-    den_v = abs2_into(den, 1.0, C)
-    np.divide(abs2_into(num, ra, B), den_v, out=R)
+    den_v = abs2_into(den, 1.0, co["C"])
+    np.divide(abs2_into(num, co["ra"], co["B"]), den_v, out=R)
     if T is None:
         return
     # |t|² = |t_a t_b|² |e^{iδ}|² / |1 + C z|², and |e^{iδ}|² = |z|^{1/2}·|z|^{1/2} = |E|·|F|.
@@ -412,25 +437,15 @@ def _sweep_chunk(R, T, n, d, coherent, film, coarse, fine, wl, angles, polarisat
         through = 1 / den_v
     else:
         through = (np.sqrt(E2) * np.sqrt(F2)).reshape(A, Dc * M, W)[:, :D] / den_v
-    n_top, n_bot = (np.broadcast_to(x, (A, W))[:, None, :] for x in (n[top], n[bottom]))
-    q_top, q_bot = q[top][:, None, :], q[bottom][:, None, :]
-    T[...] = _transmittance((np.abs(ta * tb) ** 2)[:, None, :] * through, n_top, q_top, n_bot, q_bot,
-                            polarisation)
-    if all(coherent):
+    T[...] = (co["t2"] * co["f_down"])[:, None, :] * through
+    if "rbb" not in co:
         return
-    rbb, tbb = _rouard(nl[::-1], ql[::-1], dl[::-1], wl, polarisation)
-    # r_back = r_b′ + t_b′ t_b r_a′ z / (1 − r_a′ r_b z): the same denominator.
-    Rb = abs2_into(num, rbb, tbb * tb * rab + rbb * C) / den_v
-    Tb = _transmittance((np.abs(tbb * tab) ** 2)[:, None, :] * through, n_bot, q_bot, n_top, q_top,
-                        polarisation)
-    groups = []
-    for i, (a, b) in enumerate(zip(bounds[:-1], bounds[1:])):
-        if i == g:
-            groups.append((R.copy(), T.copy(), Rb, Tb))
-        else:
-            Rg = _group_rt(n[a:b + 1], q[a:b + 1], d[a:b - 1], wl, polarisation)
-            groups.append(tuple(x[:, None, :] for x in Rg))
-    att = [x[:, None, :] for x in _attenuations(n, q, d, wl, bounds)]
+    Rb = abs2_into(num, co["rbb"], co["Bb"]) / den_v
+    Tb = (co["tb2"] * co["f_up"])[:, None, :] * through
+    count = sum(key.startswith("att") for key in co) + 1
+    groups = [tuple(co[f"g{i}_{name}"][:, None, :] for name in "R T Rb Tb".split()) if f"g{i}_R" in co
+              else (R.copy(), T.copy(), Rb, Tb) for i in range(count)]
+    att = [co[f"att{i}"][:, None, :] for i in range(count - 1)]
     R[...], T[...] = _combine_incoherent(groups, att)
 
 
@@ -623,19 +638,20 @@ def reflectance_sweep(stack, wavelength_nm, film_thickness_nm, angle_deg=None, n
     n, warnings = stack_indices(stack, wl)
     d = [layer.thickness_nm for layer in stack.layers]
     coherent = [layer.coherent for layer in stack.layers]
-    shape = (centres.size, dz.size, wl.size)
-    out = {key: np.zeros(shape) for key in (("R_s", "R_p", "T_s", "T_p") if transmittance else ("R_s", "R_p"))}
     na = stack.light.numerical_aperture if numerical_aperture is None else numerical_aperture
+    out = {}
     for pol in "sp":
         if na == 0:
-            out["R_" + pol][...], T = thickness_sweep(n, d, coherent, film, dz, wl, centres, pol, transmittance)
-            if transmittance:
-                out["T_" + pol][...] = T
+            out["R_" + pol], out["T_" + pol] = thickness_sweep(n, d, coherent, film, dz, wl, centres, pol,
+                                                               transmittance)
             continue
+        R = np.empty((centres.size, dz.size, wl.size))
+        T = np.empty_like(R) if transmittance else None
         for i, centre in enumerate(centres):
             angles, weights = _angle_nodes(stack, centre, na, n[0])
-            R, T = thickness_sweep(n, d, coherent, film, dz, wl, angles, pol, transmittance)
-            out["R_" + pol][i] = np.tensordot(weights, R, axes=1)
+            Rc, Tc = thickness_sweep(n, d, coherent, film, dz, wl, angles, pol, transmittance)
+            R[i] = np.tensordot(weights, Rc, axes=1)
             if transmittance:
-                out["T_" + pol][i] = np.tensordot(weights, T, axes=1)
+                T[i] = np.tensordot(weights, Tc, axes=1)
+        out["R_" + pol], out["T_" + pol] = R, T
     return Reflectance(wl, warnings=warnings, **out)
