@@ -1,0 +1,14 @@
+"""filmcalc dashboard: page configuration and navigation only.
+
+Start it with `make run` (or `streamlit run dashboard.py`).
+"""
+
+import streamlit as st
+
+st.set_page_config(page_title="filmcalc", page_icon=":material/layers:", layout="wide")
+
+pages = [
+    st.Page("filmcalc/ui/film_spectrum.py", title="Film spectrum", icon=":material/show_chart:", default=True),
+    st.Page("filmcalc/ui/safety.py", title="Cautions", icon=":material/health_and_safety:"),
+]
+st.navigation(pages).run()

@@ -1,0 +1,1 @@
+"""Streamlit pages. The only part of filmcalc that imports Streamlit."""

@@ -1,0 +1,108 @@
+"""Film spectrum page: choose a stack, move the film thickness, see R(λ) and the colour."""
+
+import plotly.graph_objects as go
+import streamlit as st
+
+from filmcalc.errors import FilmcalcError
+from filmcalc.stack import POLARISATIONS
+from filmcalc.ui.common import cautions_box, demo_stacks, spectrum_and_colour, stack_from_text
+
+st.title("Film spectrum")
+st.write(
+    "How much light a thin film reflects at each wavelength, and the colour that makes under the stack's "
+    "light. Pick a demo sample or load your own stack file, then move the thickness."
+)
+
+demos = demo_stacks()
+with st.sidebar:
+    st.header("Stack")
+    choice = st.selectbox("Sample", list(demos), key="stack_choice",
+                          help="Demo samples are invented; their stack files are in demo_data/.")
+    upload = st.file_uploader("…or your own stack file (TOML)", type=["toml"], key="stack_upload",
+                              help="Uploaded files are used only in this browser session.")
+
+if upload is not None:
+    text, base_dir, origin = upload.getvalue().decode("utf-8", errors="replace"), None, upload.name
+else:
+    path = demos[choice]
+    text, base_dir, origin = path.read_text(encoding="utf-8"), str(path.parent), path.name
+
+try:
+    stack = stack_from_text(text, base_dir)
+    if stack.film_index is None:
+        raise FilmcalcError("This stack marks no layer as unknown = true; add it to the film being measured.")
+except FilmcalcError as exc:
+    st.error(f"{origin}: {exc}")
+    st.stop()
+
+film = stack.film
+with st.sidebar:
+    st.header("Film and light")
+    thickness = st.slider("Film thickness (nm)", 0.0, 2000.0, float(min(film.thickness_nm, 2000.0)), 1.0,
+                          format="%.0f nm", key=f"thickness::{origin}")
+    angle = st.slider("Angle of incidence (°)", 0.0, 80.0, float(stack.light.angle_deg), 0.5,
+                      format="%.1f°", key=f"angle::{origin}")
+    polarisation = st.radio("Polarisation", POLARISATIONS,
+                            index=POLARISATIONS.index(stack.light.polarisation), horizontal=True,
+                            key=f"pol::{origin}")
+    exposure = st.slider("Exposure (×)", 0.5, 30.0, 1.0, 0.5, format="%.1f×", key=f"exposure::{origin}",
+                         help="Scales the reflected light before it becomes a colour, as a camera's exposure "
+                              "would. 1× shows the film next to a perfect white; weakly reflecting films such "
+                              "as soap films (under 8 %) need 8–12× to show their colours brightly.")
+
+try:
+    with st.spinner("Computing…"):
+        result = spectrum_and_colour(text, base_dir, thickness, angle, polarisation, exposure)
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+
+for warning in result["warnings"]:
+    st.warning(warning)
+
+left, right = st.columns([3, 1])
+with left:
+    fig = go.Figure()
+    wl = result["wavelength_nm"]
+    shown = {"unpolarised": ("R", "unpolarised"), "s": ("R_s", "s"), "p": ("R_p", "p")}
+    for key, label in (("R_s", "s"), ("R_p", "p"), ("R", "unpolarised")):
+        selected = shown[polarisation][0] == key
+        fig.add_trace(go.Scatter(
+            x=wl, y=100 * result[key], name=label, mode="lines",
+            line={"width": 3 if selected else 1.2, "dash": "solid" if selected else "dot"},
+            hovertemplate="λ %{x:.0f} nm<br>R %{y:.2f} %<extra>" + label + "</extra>"))
+    fig.update_layout(
+        title=f"{stack.name}: {film.material.name} {thickness:.0f} nm at {angle:g}°",
+        xaxis_title="wavelength (nm)", yaxis_title="reflectance (%)", height=430,
+        margin={"l": 10, "r": 10, "t": 50, "b": 10}, legend={"orientation": "h", "y": -0.2})
+    fig.update_yaxes(rangemode="tozero")
+    st.plotly_chart(fig, width="stretch")
+
+with right:
+    st.subheader("Colour")
+    st.markdown(
+        f"<div style='height:150px;border-radius:8px;border:1px solid #888;background:{result['hex']}'></div>",
+        unsafe_allow_html=True)
+    X, Y, Z = result["XYZ"]
+    st.markdown(f"**{result['hex']}** (sRGB)  \nXYZ = {X:.1f}, {Y:.1f}, {Z:.1f}  \n"
+                f"light: {stack.light.source}, CIE 1931 2° observer, {polarisation}, exposure {exposure:g}×")
+    if result["out_of_gamut"]:
+        st.caption("Outside the sRGB gamut: each channel is clipped for display.")
+    if result["monochromatic"]:
+        st.caption("Line light: the film shows brighter or darker shades of the line colour.")
+
+st.subheader("Layers")
+rows = [{"medium": "ambient", "material": stack.ambient.name, "thickness (nm)": "—", "source": stack.ambient.source}]
+for i, layer in enumerate(stack.layers, start=1):
+    rows.append({"medium": f"layer {i}" + (" (film)" if layer.unknown else "")
+                 + ("" if layer.coherent else " (thick)"),
+                 "material": layer.material.name,
+                 "thickness (nm)": f"{thickness if layer.unknown else layer.thickness_nm:,.1f}",
+                 "source": layer.material.source})
+rows.append({"medium": "substrate", "material": stack.substrate.name, "thickness (nm)": "—",
+             "source": stack.substrate.source})
+st.dataframe(rows, hide_index=True, width="stretch")
+if stack.light.numerical_aperture:
+    st.caption(f"Averaged over an illumination cone of NA {stack.light.numerical_aperture:g} "
+               "(uniformly filled pupil).")
+cautions_box()
