@@ -7,6 +7,17 @@ spectrum STACK.toml --thickness NM [--angle DEG] [--polarisation s|p|unpolarised
     Reflectance spectrum of the stack: CSV ``wavelength_nm,R_s,R_p,R``
     (fractions 0–1), or JSON.
 
+colour STACK.toml --thickness NM [--angle DEG] [--exposure X] [--observer 2|10] [--json]
+    The film's colour: hex, sRGB, CIELAB and XYZ (Y = 100 for a perfect white).
+
+chart STACK.toml --from NM --to NM --step NM [--angles A:B:STEP] --out FILE.png|.pdf [--csv FILE]
+      [--unit nm|um|A] [--paper A4|Letter] [--exposure X] [--observer 2|10]
+    A printable bench chart of swatches (one angle), or with --angles a
+    thickness × angle colour chart; --csv writes one row per thickness and angle.
+
+match STACK.toml --colour "#RRGGBB" [--range MIN:MAX] [--tolerance DE] [--angle DEG] [--json]
+    Every thickness in the range whose colour is within the ΔE₀₀ tolerance.
+
 Errors a user can cause print one line to stderr and exit with status 2;
 material warnings go to stderr and do not change the output.
 """
@@ -14,6 +25,7 @@ material warnings go to stderr and do not change the output.
 from __future__ import annotations
 
 import argparse
+import csv
 import json
 import sys
 
@@ -23,6 +35,8 @@ from . import __version__
 from .errors import FilmcalcError
 from .optics import stack_reflectance
 from .stack import POLARISATIONS, load_stack
+
+# The colour commands import colour-science (slow to load), so they import lazily.
 
 
 def parse_range(text, what, count=3):
@@ -71,6 +85,115 @@ def _spectrum(args):
         print(f"{row[0]:g},{row[1]:.8f},{row[2]:.8f},{row[3]:.8f}")
 
 
+def _warn(warnings):
+    for w in warnings:
+        print(f"warning: {w}", file=sys.stderr)
+
+
+def _film_stack(path):
+    stack = load_stack(path)
+    if stack.film_index is None:
+        raise FilmcalcError(f"{path}: no layer has unknown = true; mark the film to vary.")
+    return stack
+
+
+def _colour(args):
+    from .appearance import film_colours
+
+    stack = _film_stack(args.stack)
+    if args.thickness < 0:
+        raise FilmcalcError("--thickness must be ≥ 0 nm.")
+    c = film_colours(stack, [args.thickness], None if args.angle is None else [args.angle],
+                     observer=args.observer, exposure=args.exposure)
+    _warn(c.warnings)
+    result = {"thickness_nm": args.thickness, "angle_deg": float(c.angle_deg[0]), "hex": str(c.hex()[0, 0]),
+              "sRGB": [round(float(v), 6) for v in c.srgb[0, 0]],
+              "CIELAB": [round(float(v), 4) for v in c.Lab[0, 0]],
+              "XYZ": [round(float(v), 5) for v in c.XYZ[0, 0]],
+              "out_of_gamut": bool(c.out_of_gamut[0, 0]), "light": c.source, "observer": c.observer,
+              "exposure": c.exposure, "polarisation": c.polarisation}
+    if args.json:
+        print(json.dumps(result, indent=1))
+        return
+    L, a, b = result["CIELAB"]
+    X, Y, Z = result["XYZ"]
+    print(f"{result['hex']}  sRGB {', '.join(f'{v:.4f}' for v in result['sRGB'])}"
+          f"{'  (out of gamut, clipped)' if result['out_of_gamut'] else ''}")
+    print(f"CIELAB L* {L:.2f}  a* {a:.2f}  b* {b:.2f}   XYZ {X:.3f} {Y:.3f} {Z:.3f}")
+    print(f"({stack.name}; {args.thickness:g} nm at {result['angle_deg']:g}°; light {c.source}, "
+          f"{c.observer}° observer, exposure {c.exposure:g}×)")
+
+
+def _thickness_grid(start, stop, step):
+    if not (0 <= start < stop and step > 0):
+        raise FilmcalcError("Thickness range needs 0 ≤ --from < --to and --step > 0.")
+    count = int(np.floor((stop - start) / step + 1e-9)) + 1
+    if count > 200001:
+        raise FilmcalcError("That range and step give over 200 000 thicknesses; use a larger --step.")
+    return start + step * np.arange(count)
+
+
+def _chart(args):
+    from .appearance import film_colours
+    from .charts import bench_chart, colour_table, save_bench_chart, thickness_angle_chart_image
+
+    stack = _film_stack(args.stack)
+    dz = _thickness_grid(args.from_nm, args.to_nm, args.step)
+    if args.angles:
+        lo, hi, step = parse_range(args.angles, "--angles")
+        if not (0 <= lo <= hi < 90 and step > 0):
+            raise FilmcalcError("--angles needs 0 ≤ A ≤ B < 90 and STEP > 0.")
+        angles = np.arange(lo, hi + step / 2, step)
+    else:
+        angles = None
+    c = film_colours(stack, dz, angles, observer=args.observer, exposure=args.exposure)
+    _warn(c.warnings)
+    if args.angles:
+        fig = thickness_angle_chart_image(c, stack, args.unit, args.paper)
+    else:
+        fig = bench_chart(c, stack, args.unit, args.paper)
+    save_bench_chart(fig, args.out)
+    if args.csv:
+        rows = colour_table(c)
+        with open(args.csv, "w", newline="", encoding="utf-8") as fh:
+            writer = csv.DictWriter(fh, fieldnames=list(rows[0]))
+            writer.writeheader()
+            writer.writerows(rows)
+    print(f"wrote {args.out}" + (f" and {args.csv}" if args.csv else ""), file=sys.stderr)
+
+
+def _match(args):
+    from .appearance import film_colours, match_colour
+    from .colour import parse_colour
+
+    stack = _film_stack(args.stack)
+    lo, hi = parse_range(args.range, "--range", 2)
+    dz = _thickness_grid(lo, hi, args.resolution)
+    c = film_colours(stack, dz, None if args.angle is None else [args.angle], observer=args.observer,
+                     exposure=args.exposure)
+    _warn(c.warnings)
+    target = parse_colour(args.colour, c.white_XYZ)
+    found = match_colour(target, c, args.tolerance, stack)
+    if args.json:
+        print(json.dumps({"colour": args.colour, "CIELAB": [round(float(v), 3) for v in target],
+                          "tolerance": args.tolerance, "range_nm": [lo, hi], "angle_deg": float(c.angle_deg[0]),
+                          "candidates": found}, indent=1))
+        return
+    if not found:
+        print(f"No thickness in {lo:g}–{hi:g} nm comes within ΔE00 {args.tolerance:g} of {args.colour}; "
+              "widen --range or --tolerance, or check the light and exposure.")
+        return
+    print("thickness_nm,delta_E00,order,from_nm,to_nm,hex")
+    for cand in found:
+        print(f"{cand['thickness_nm']:g},{cand['delta_E']:.2f},{cand['order']},{cand['from_nm']:g},"
+              f"{cand['to_nm']:g},{cand['hex']}")
+
+
+def _add_colour_options(p):
+    p.add_argument("--exposure", type=float, default=1.0, help="exposure factor (default 1)")
+    p.add_argument("--observer", choices=("2", "10"), default="2", help="CIE 1931 2° or 1964 10° observer")
+
+
 def build_parser():
     parser = argparse.ArgumentParser(prog="filmcalc", description="Thin-film thickness from interference colour.")
     parser.add_argument("--version", action="version", version=f"filmcalc {__version__}")
@@ -84,6 +207,38 @@ def build_parser():
     sp.add_argument("--wavelengths", default="380:780:5", help="A:B:STEP in nm (default 380:780:5)")
     sp.add_argument("--json", action="store_true", help="print JSON instead of CSV")
     sp.set_defaults(run=_spectrum)
+
+    cp = sub.add_parser("colour", help="the film's colour at one thickness")
+    cp.add_argument("stack", help="stack file (TOML)")
+    cp.add_argument("--thickness", type=float, required=True, help="film thickness, nm")
+    cp.add_argument("--angle", type=float, help="angle of incidence, degrees (default: the file's)")
+    _add_colour_options(cp)
+    cp.add_argument("--json", action="store_true", help="print JSON")
+    cp.set_defaults(run=_colour)
+
+    ch = sub.add_parser("chart", help="printable colour chart (PNG or PDF) and CSV table")
+    ch.add_argument("stack", help="stack file (TOML)")
+    ch.add_argument("--from", dest="from_nm", type=float, default=0.0, help="first thickness, nm (default 0)")
+    ch.add_argument("--to", dest="to_nm", type=float, required=True, help="last thickness, nm")
+    ch.add_argument("--step", type=float, required=True, help="thickness step, nm")
+    ch.add_argument("--angles", help="A:B:STEP degrees for a thickness × angle chart")
+    ch.add_argument("--out", required=True, help="FILE.png or FILE.pdf")
+    ch.add_argument("--csv", help="also write the colour table as CSV")
+    ch.add_argument("--unit", default="nm", help="thickness unit on the chart: nm, um or A")
+    ch.add_argument("--paper", choices=("A4", "Letter"), default="A4")
+    _add_colour_options(ch)
+    ch.set_defaults(run=_chart)
+
+    mp = sub.add_parser("match", help="thicknesses that show a given colour")
+    mp.add_argument("stack", help="stack file (TOML)")
+    mp.add_argument("--colour", required=True, help='"#RRGGBB", srgb:R,G,B (0-1) or lab:L,a,b')
+    mp.add_argument("--range", default="0:1500", help="MIN:MAX thickness, nm (default 0:1500)")
+    mp.add_argument("--tolerance", type=float, default=5.0, help="largest ΔE00 (default 5)")
+    mp.add_argument("--resolution", type=float, default=1.0, help="thickness step searched, nm (default 1)")
+    mp.add_argument("--angle", type=float, help="angle of incidence, degrees (default: the file's)")
+    _add_colour_options(mp)
+    mp.add_argument("--json", action="store_true", help="print JSON")
+    mp.set_defaults(run=_match)
     return parser
 
 

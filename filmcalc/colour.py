@@ -9,18 +9,31 @@ light_spectrum
     Relative spectral power of a light source on a wavelength grid.
 reflectance_to_XYZ
     Apply a kernel to reflectance arrays (wavelength last).
-XYZ_to_srgb
-    XYZ (Y = 100 scale) → encoded sRGB in 0–1, white adapted to D65
-    (Bradford), with an out-of-gamut mask.
+XYZ_to_srgb, srgb_to_XYZ
+    XYZ (Y = 100 scale) ↔ encoded sRGB in 0–1, the light's white adapted to
+    D65 (Bradford), with an out-of-gamut mask.
+XYZ_to_xy, XYZ_to_uv, XYZ_to_Lab, Lab_to_XYZ, XYZ_to_Oklab
+    Chromaticity, CIELAB (relative to the light's white), Oklab.
+delta_E_2000
+    CIEDE2000 colour difference.
+parse_colour
+    "#RRGGBB", "srgb:R,G,B" or "lab:L,a,b" → CIELAB under a given white.
+CameraResponse, load_camera_csv, camera_kernel
+    A linear camera given by its red/green/blue spectral sensitivities.
 
 Light sources: CIE illuminants shipped by colour-science (``D65``, ``A``,
 ``FL2`` or the CIE's own ``F2``, ``LED-B3``, …), ``blackbody:5000`` (kelvin),
-lines ``line:632.8`` or ``line:589.0,589.6`` (equal power), or a CSV path
-with columns ``wavelength_nm,power``.
+lines ``line:632.8`` or ``line:589.0,589.6`` (equal power), the named line
+sets in :data:`LINE_SOURCES` (``sodium``, ``mercury``, ``hene``…), or a CSV
+path with columns ``wavelength_nm,power``.
 
 References
 ----------
-CIE 015:2018, Colorimetry, 4th ed. (tristimulus integration, §7).
+CIE 015:2018, Colorimetry, 4th ed. (tristimulus integration §7, CIELAB §8).
+Sharma, G., Wu, W. & Dalal, E. N. (2005). The CIEDE2000 color-difference
+formula: implementation notes, supplementary test data, and mathematical
+observations. Color Res. Appl. 30, 21–30.
+Ottosson, B. (2020). A perceptual color space for image processing (Oklab).
 IEC 61966-2-1:1999, sRGB (primaries, D65 white, transfer function).
 Lam, K. M. (1985), Metamerism and colour constancy, PhD thesis, University
 of Bradford (the Bradford chromatic adaptation transform).
@@ -41,8 +54,10 @@ with warnings.catch_warnings():  # colour-science warns when matplotlib is absen
     warnings.simplefilter("ignore")
     import colour as _cs
 
-__all__ = ["ColourKernel", "colour_kernel", "light_spectrum", "reflectance_to_XYZ", "XYZ_to_srgb", "srgb_encode", "srgb_to_hex",
-           "OBSERVERS", "DEFAULT_WAVELENGTHS_NM"]
+__all__ = ["ColourKernel", "colour_kernel", "light_spectrum", "reflectance_to_XYZ", "XYZ_to_srgb", "srgb_to_XYZ",
+           "srgb_encode", "srgb_decode", "srgb_to_hex", "XYZ_to_xy", "XYZ_to_uv", "XYZ_to_Lab", "Lab_to_XYZ",
+           "XYZ_to_Oklab", "delta_E_2000", "parse_colour", "CameraResponse", "load_camera_csv",
+           "camera_kernel", "spectral_locus", "OBSERVERS", "DEFAULT_WAVELENGTHS_NM", "LINE_SOURCES"]
 
 OBSERVERS = {"2": "CIE 1931 2 Degree Standard Observer", "10": "CIE 1964 10 Degree Standard Observer"}
 DEFAULT_WAVELENGTHS_NM = np.arange(380.0, 781.0, 5.0)
@@ -74,6 +89,18 @@ def _illuminant_name(source):
         if key.lower() == name.lower():
             return key
     return None
+
+
+# Named line sources: air wavelengths in nm (NIST Atomic Spectra Database;
+# equal power is assumed for the lines of a set).
+LINE_SOURCES = {
+    "sodium": "line:588.995,589.592",   # Na D₂, D₁
+    "mercury": "line:404.656,435.834,546.074",  # Hg h, g, e lines
+    "mercury-green": "line:546.074",
+    "helium-d": "line:587.562",
+    "hene": "line:632.8",                # He–Ne laser
+    "hene-green": "line:543.5",
+}
 
 
 def _parse_lines(source):
@@ -134,7 +161,8 @@ def light_spectrum(source, wavelength_nm, base_dir=None):
     known = ", ".join(k for k in _cs.SDS_ILLUMINANTS if not k.startswith(("ISO", "FL3.")))
     raise FilmcalcError(
         f"Unknown light {source!r}. Use an illuminant ({known}; F1–F12 also accepted), "
-        "blackbody:5000, line:632.8, or a CSV file wavelength_nm,power."
+        f"blackbody:5000, line:632.8, a named line set ({', '.join(LINE_SOURCES)}), "
+        "or a CSV file wavelength_nm,power."
     )
 
 
@@ -188,6 +216,7 @@ def colour_kernel(source="D65", observer="2", wavelength_nm=None, base_dir=None)
     if str(observer) not in OBSERVERS:
         raise FilmcalcError(f"Observer must be '2' (CIE 1931) or '10' (CIE 1964), not {observer!r}.")
     cmfs = _cs.MSDS_CMFS[OBSERVERS[str(observer)]]
+    source = LINE_SOURCES.get(source.strip().lower(), source)
     if source.lower().startswith("line:"):
         wl = _parse_lines(source)
         if wl.min() < cmfs.wavelengths[0] or wl.max() > cmfs.wavelengths[-1]:
@@ -274,3 +303,199 @@ def srgb_to_hex(srgb):
     """'#rrggbb' for one encoded sRGB triple in 0–1."""
     r, g, b = (int(round(float(np.clip(c, 0, 1)) * 255)) for c in srgb)
     return f"#{r:02x}{g:02x}{b:02x}"
+
+
+def spectral_locus(observer="2", space="xy", wavelength_nm=None):
+    """Chromaticities of monochromatic light: rows (λ nm, x, y) or (λ, u′, v′).
+
+    Parameters
+    ----------
+    observer : {"2", "10"}
+    space : {"xy", "uv"}
+    wavelength_nm : array_like, optional
+        Default 380–700 nm every 5 nm (beyond 700 nm the locus folds back on itself).
+    """
+    if str(observer) not in OBSERVERS:
+        raise FilmcalcError(f"Observer must be '2' or '10', not {observer!r}.")
+    cmfs = _cs.MSDS_CMFS[OBSERVERS[str(observer)]]
+    wl = np.arange(380.0, 701.0, 5.0) if wavelength_nm is None else np.asarray(wavelength_nm, dtype=float)
+    XYZ = np.stack([np.interp(wl, cmfs.wavelengths, cmfs.values[:, i]) for i in range(3)], -1)
+    return np.column_stack([wl, XYZ_to_xy(XYZ) if space == "xy" else XYZ_to_uv(XYZ)])
+
+
+def srgb_decode(encoded):
+    """Inverse of :func:`srgb_encode` (IEC 61966-2-1)."""
+    V = np.asarray(encoded, dtype=float)
+    return np.where(V <= 0.04045, V / 12.92, ((np.abs(V) + 0.055) / 1.055) ** 2.4 * np.sign(V))
+
+
+def srgb_to_XYZ(srgb, white_XYZ):
+    """Encoded sRGB (0–1) → XYZ on the Y = 100 scale under the light whose white is ``white_XYZ``."""
+    linear = srgb_decode(srgb)
+    return 100.0 * linear @ np.linalg.inv(_adaptation_matrix(np.asarray(white_XYZ, float))).T
+
+
+def XYZ_to_xy(XYZ):
+    """CIE 1931 chromaticity (x, y); black maps to (0, 0)."""
+    XYZ = np.asarray(XYZ, dtype=float)
+    total = XYZ.sum(axis=-1, keepdims=True)
+    return np.divide(XYZ[..., :2], total, out=np.zeros(XYZ.shape[:-1] + (2,)), where=total > 0)
+
+
+def XYZ_to_uv(XYZ):
+    """CIE 1976 UCS chromaticity (u′, v′) = (4X, 9Y) / (X + 15Y + 3Z)."""
+    XYZ = np.asarray(XYZ, dtype=float)
+    den = XYZ[..., 0] + 15 * XYZ[..., 1] + 3 * XYZ[..., 2]
+    num = np.stack([4 * XYZ[..., 0], 9 * XYZ[..., 1]], axis=-1)
+    return np.divide(num, den[..., None], out=np.zeros(num.shape), where=den[..., None] > 0)
+
+
+_EPS, _KAPPA = 216 / 24389, 24389 / 27  # CIE 015:2018 eq. 8.4 constants
+
+
+def XYZ_to_Lab(XYZ, white_XYZ):
+    """CIELAB (L*, a*, b*) relative to the reference white (CIE 015:2018 §8.2.1)."""
+    t = np.asarray(XYZ, dtype=float) / np.asarray(white_XYZ, dtype=float)
+    f = np.where(t > _EPS, np.cbrt(t), (_KAPPA * t + 16) / 116)
+    return np.stack([116 * f[..., 1] - 16, 500 * (f[..., 0] - f[..., 1]), 200 * (f[..., 1] - f[..., 2])], axis=-1)
+
+
+def Lab_to_XYZ(Lab, white_XYZ):
+    """Inverse of :func:`XYZ_to_Lab`."""
+    Lab = np.asarray(Lab, dtype=float)
+    fy = (Lab[..., 0] + 16) / 116
+    f = np.stack([fy + Lab[..., 1] / 500, fy, fy - Lab[..., 2] / 200], axis=-1)
+    t = np.where(f**3 > _EPS, f**3, (116 * f - 16) / _KAPPA)
+    return t * np.asarray(white_XYZ, dtype=float)
+
+
+_OKLAB_M1 = np.array([[0.8189330101, 0.3618667424, -0.1288597137],
+                      [0.0329845436, 0.9293118715, 0.0361456387],
+                      [0.0482003018, 0.2643662691, 0.6338517070]])
+_OKLAB_M2 = np.array([[0.2104542553, 0.7936177850, -0.0040720468],
+                      [1.9779984951, -2.4285922050, 0.4505937099],
+                      [0.0259040371, 0.7827717662, -0.8086757660]])
+
+
+def XYZ_to_Oklab(XYZ, white_XYZ):
+    """Oklab (Ottosson 2020) after Bradford adaptation of the light's white to D65."""
+    cat = _cs.adaptation.matrix_chromatic_adaptation_VonKries(np.asarray(white_XYZ) / white_XYZ[1],
+                                                              _xy_to_XYZ(_D65_XY), transform="Bradford")
+    xyz65 = (np.asarray(XYZ, dtype=float) / 100.0) @ cat.T
+    return np.cbrt(xyz65 @ _OKLAB_M1.T) @ _OKLAB_M2.T
+
+
+def delta_E_2000(Lab1, Lab2):
+    """CIEDE2000 colour difference ΔE₀₀ (k_L = k_C = k_H = 1), Sharma, Wu & Dalal (2005)."""
+    L1, a1, b1 = np.moveaxis(np.asarray(Lab1, dtype=float), -1, 0)
+    L2, a2, b2 = np.moveaxis(np.asarray(Lab2, dtype=float), -1, 0)
+    C_mean = (np.hypot(a1, b1) + np.hypot(a2, b2)) / 2
+    G = 0.5 * (1 - np.sqrt(C_mean**7 / (C_mean**7 + 25.0**7)))
+    a1p, a2p = (1 + G) * a1, (1 + G) * a2
+    C1p, C2p = np.hypot(a1p, b1), np.hypot(a2p, b2)
+    h1p = np.degrees(np.arctan2(b1, a1p)) % 360
+    h2p = np.degrees(np.arctan2(b2, a2p)) % 360
+    dLp = L2 - L1
+    dCp = C2p - C1p
+    dhp = h2p - h1p
+    dhp = np.where(dhp > 180, dhp - 360, np.where(dhp < -180, dhp + 360, dhp))
+    dhp = np.where(C1p * C2p == 0, 0.0, dhp)
+    dHp = 2 * np.sqrt(C1p * C2p) * np.sin(np.radians(dhp / 2))
+    Lp = (L1 + L2) / 2
+    Cp = (C1p + C2p) / 2
+    hsum = h1p + h2p
+    hp = np.where(np.abs(h1p - h2p) <= 180, hsum / 2, np.where(hsum < 360, (hsum + 360) / 2, (hsum - 360) / 2))
+    hp = np.where(C1p * C2p == 0, hsum, hp)
+    T = (1 - 0.17 * np.cos(np.radians(hp - 30)) + 0.24 * np.cos(np.radians(2 * hp))
+         + 0.32 * np.cos(np.radians(3 * hp + 6)) - 0.20 * np.cos(np.radians(4 * hp - 63)))
+    d_theta = 30 * np.exp(-(((hp - 275) / 25) ** 2))
+    R_C = 2 * np.sqrt(Cp**7 / (Cp**7 + 25.0**7))
+    S_L = 1 + 0.015 * (Lp - 50) ** 2 / np.sqrt(20 + (Lp - 50) ** 2)
+    S_C = 1 + 0.045 * Cp
+    S_H = 1 + 0.015 * Cp * T
+    R_T = -np.sin(np.radians(2 * d_theta)) * R_C
+    return np.sqrt((dLp / S_L) ** 2 + (dCp / S_C) ** 2 + (dHp / S_H) ** 2 + R_T * (dCp / S_C) * (dHp / S_H))
+
+
+def parse_colour(text, white_XYZ):
+    """A colour typed by a user → CIELAB relative to ``white_XYZ``.
+
+    Accepted: ``#RRGGBB`` (encoded sRGB, as a display shows it), ``srgb:R,G,B``
+    with components 0–1, or ``lab:L,a,b``.
+    """
+    t = str(text).strip().lower()
+    try:
+        if re.fullmatch(r"#?[0-9a-f]{6}", t):
+            h = t.lstrip("#")
+            srgb = np.array([int(h[i:i + 2], 16) for i in (0, 2, 4)]) / 255.0
+            return XYZ_to_Lab(srgb_to_XYZ(srgb, white_XYZ), white_XYZ)
+        kind, _, values = t.partition(":")
+        numbers = np.array([float(v) for v in values.split(",")])
+        if numbers.size == 3 and kind == "srgb" and np.all((numbers >= 0) & (numbers <= 1)):
+            return XYZ_to_Lab(srgb_to_XYZ(numbers, white_XYZ), white_XYZ)
+        if numbers.size == 3 and kind == "lab":
+            return numbers
+    except ValueError:
+        pass
+    raise FilmcalcError(f"Colour {text!r} not understood: write #RRGGBB, srgb:R,G,B (0–1) or lab:L,a,b.")
+
+
+@dataclasses.dataclass(frozen=True)
+class CameraResponse:
+    """A linear camera: red, green and blue spectral sensitivities.
+
+    Attributes
+    ----------
+    wavelength_nm : numpy.ndarray, shape (W,)
+    sensitivity : numpy.ndarray, shape (W, 3)
+        Relative sensitivities (any scale).
+    name : str
+    """
+
+    wavelength_nm: np.ndarray
+    sensitivity: np.ndarray
+    name: str = "camera"
+
+
+def load_camera_csv(path):
+    """Read ``wavelength_nm,red,green,blue`` sensitivities into a :class:`CameraResponse`."""
+    path = Path(path)
+    try:
+        with path.open(encoding="utf-8-sig") as fh:
+            header = [h.strip().lower() for h in fh.readline().split(",")]
+        data = np.loadtxt(path, delimiter=",", skiprows=1, ndmin=2)
+    except (OSError, ValueError) as exc:
+        raise FilmcalcError(f"Camera file {str(path)!r} could not be read: {exc}") from None
+    if header[:4] != ["wavelength_nm", "red", "green", "blue"]:
+        raise FilmcalcError(f"Camera file {str(path)!r}: the header must be wavelength_nm,red,green,blue.")
+    if data.shape[0] < 2 or np.any(np.diff(data[:, 0]) <= 0) or np.any(data[:, 1:4] < 0):
+        raise FilmcalcError(f"Camera file {str(path)!r}: need increasing wavelengths and sensitivities ≥ 0.")
+    return CameraResponse(data[:, 0], data[:, 1:4], path.stem)
+
+
+def camera_kernel(camera, source="D65", wavelength_nm=None, white_balance=None, base_dir=None):
+    """Weights turning reflectance into white-balanced linear camera RGB.
+
+    RGB = Σ R(λ) S(λ) c̄(λ) Δλ per channel, then each channel is divided by its
+    value for a perfect white reflector under the white-balance light (the
+    scene's own light by default), so that white reads (1, 1, 1).
+
+    Returns
+    -------
+    ColourKernel
+        ``weights`` give camera RGB (not XYZ); ``white_XYZ`` is (1, 1, 1)·100 in
+        camera units when balanced on the scene light.
+    """
+    wl = DEFAULT_WAVELENGTHS_NM if wavelength_nm is None else np.asarray(wavelength_nm, dtype=float)
+    if wl.min() < camera.wavelength_nm[0] or wl.max() > camera.wavelength_nm[-1]:
+        raise FilmcalcError(f"Camera {camera.name!r} covers {camera.wavelength_nm[0]:g}–"
+                            f"{camera.wavelength_nm[-1]:g} nm; the colour grid needs {wl.min():g}–{wl.max():g} nm.")
+    sens = np.stack([np.interp(wl, camera.wavelength_nm, camera.sensitivity[:, i]) for i in range(3)], -1)
+    dl = np.gradient(wl)
+    raw = (light_spectrum(source, wl, base_dir) * dl)[:, None] * sens
+    balance_light = source if white_balance is None else white_balance
+    ref = ((light_spectrum(balance_light, wl, base_dir) * dl)[:, None] * sens).sum(axis=0)
+    if np.any(ref <= 0):
+        raise FilmcalcError(f"Camera {camera.name!r} sees no light in one channel under {balance_light!r}.")
+    weights = 100.0 * raw / ref
+    return ColourKernel(wl, weights, weights.sum(axis=0), source, f"camera:{camera.name}", False)
