@@ -16,6 +16,9 @@ XYZ_to_xy, XYZ_to_uv, XYZ_to_Lab, Lab_to_XYZ, XYZ_to_Oklab
     Chromaticity, CIELAB (relative to the light's white), Oklab.
 delta_E_2000
     CIEDE2000 colour difference.
+hue_family, HUE_ANCHORS
+    Coarse hue names (red, orange, yellow, green, cyan, blue, violet, magenta)
+    from the CIELAB hue angle.
 parse_colour
     "#RRGGBB", "srgb:R,G,B" or "lab:L,a,b" → CIELAB under a given white.
 CameraResponse, load_camera_csv, camera_kernel
@@ -42,6 +45,7 @@ of Bradford (the Bradford chromatic adaptation transform).
 from __future__ import annotations
 
 import dataclasses
+import functools
 import re
 import warnings
 from pathlib import Path
@@ -57,7 +61,7 @@ with warnings.catch_warnings():  # colour-science warns when matplotlib is absen
 __all__ = ["ColourKernel", "colour_kernel", "light_spectrum", "reflectance_to_XYZ", "XYZ_to_srgb", "srgb_to_XYZ",
            "srgb_encode", "srgb_decode", "srgb_to_hex", "XYZ_to_xy", "XYZ_to_uv", "XYZ_to_Lab", "Lab_to_XYZ",
            "XYZ_to_Oklab", "delta_E_2000", "parse_colour", "CameraResponse", "load_camera_csv",
-           "camera_kernel", "spectral_locus", "OBSERVERS", "DEFAULT_WAVELENGTHS_NM", "LINE_SOURCES"]
+           "camera_kernel", "spectral_locus", "hue_family", "HUE_ANCHORS", "OBSERVERS", "DEFAULT_WAVELENGTHS_NM", "LINE_SOURCES"]
 
 OBSERVERS = {"2": "CIE 1931 2 Degree Standard Observer", "10": "CIE 1964 10 Degree Standard Observer"}
 DEFAULT_WAVELENGTHS_NM = np.arange(380.0, 781.0, 5.0)
@@ -354,8 +358,14 @@ _EPS, _KAPPA = 216 / 24389, 24389 / 27  # CIE 015:2018 eq. 8.4 constants
 
 
 def XYZ_to_Lab(XYZ, white_XYZ):
-    """CIELAB (L*, a*, b*) relative to the reference white (CIE 015:2018 §8.2.1)."""
-    t = np.asarray(XYZ, dtype=float) / np.asarray(white_XYZ, dtype=float)
+    """CIELAB (L*, a*, b*) relative to the reference white (CIE 015:2018 §8.2.1).
+
+    A white with a zero component (a single red line has Z = 0) leaves that
+    channel at zero: CIELAB then only tells lightness and one opponent axis.
+    """
+    XYZ = np.asarray(XYZ, dtype=float)
+    white = np.broadcast_to(np.asarray(white_XYZ, dtype=float), XYZ.shape)
+    t = np.divide(XYZ, white, out=np.zeros(XYZ.shape), where=white > 0)
     f = np.where(t > _EPS, np.cbrt(t), (_KAPPA * t + 16) / 116)
     return np.stack([116 * f[..., 1] - 16, 500 * (f[..., 0] - f[..., 1]), 200 * (f[..., 1] - f[..., 2])], axis=-1)
 
@@ -499,3 +509,38 @@ def camera_kernel(camera, source="D65", wavelength_nm=None, white_balance=None, 
         raise FilmcalcError(f"Camera {camera.name!r} sees no light in one channel under {balance_light!r}.")
     weights = 100.0 * raw / ref
     return ColourKernel(wl, weights, weights.sum(axis=0), source, f"camera:{camera.name}", False)
+
+
+# Hue families: each is anchored at the CIELAB hue angle (D65, 2°) of a CSS
+# Color Module Level 4 named colour (W3C), and a colour belongs to the family
+# whose anchor hue is nearest, so the boundaries fall midway between anchors.
+# Chosen so that the trade's coarse colour words map onto an open standard's
+# colour names rather than onto values picked by eye.
+HUE_ANCHORS = {"red": "#ff0000", "orange": "#ffa500", "yellow": "#ffff00", "green": "#008000",
+               "cyan": "#00ffff", "blue": "#4169e1", "violet": "#8a2be2", "magenta": "#ff00ff"}
+
+
+@functools.cache
+def _anchor_hues():
+    d65 = _xy_to_XYZ(_D65_XY) * 100
+    names = list(HUE_ANCHORS)
+    labs = np.array([parse_colour(HUE_ANCHORS[n], d65) for n in names])
+    return names, np.degrees(np.arctan2(labs[:, 2], labs[:, 1])) % 360
+
+
+def hue_family(Lab):
+    """Coarse hue name(s) of CIELAB colours: the family whose anchor hue is nearest.
+
+    Parameters
+    ----------
+    Lab : array_like, shape (..., 3)
+
+    Returns
+    -------
+    numpy.ndarray of str, shape (...)
+    """
+    Lab = np.asarray(Lab, dtype=float)
+    names, anchors = _anchor_hues()
+    h = np.degrees(np.arctan2(Lab[..., 2], Lab[..., 1])) % 360
+    gap = np.abs((h[..., None] - anchors + 180) % 360 - 180)
+    return np.array(names)[np.argmin(gap, axis=-1)]

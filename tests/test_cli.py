@@ -47,3 +47,33 @@ def test_module_entry_point():
     out = subprocess.run([sys.executable, "-m", "filmcalc", "spectrum", OXIDE, "--thickness", "50"],
                          capture_output=True, text=True, check=True).stdout
     assert out.startswith("wavelength_nm,R_s,R_p,R")
+
+
+def test_colour_json(capsys):
+    assert main(["colour", OXIDE, "--thickness", "120", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["hex"].startswith("#") and len(data["hex"]) == 7
+    assert len(data["XYZ"]) == 3 and 0 < data["XYZ"][1] < 100  # Y = 100 scale
+    assert len(data["CIELAB"]) == 3 and len(data["sRGB"]) == 3
+
+
+def test_chart_writes_image_and_csv(tmp_path, capsys):
+    out, table = tmp_path / "chart.png", tmp_path / "chart.csv"
+    assert main(["chart", OXIDE, "--from", "0", "--to", "300", "--step", "10", "--out", str(out),
+                 "--csv", str(table)]) == 0
+    assert out.read_bytes()[:4] == b"\x89PNG"
+    lines = table.read_text().splitlines()
+    header = lines[0].split(",")
+    assert {"thickness_nm", "angle_deg", "hex", "L", "a", "b"} <= set(header) and len(lines) == 32
+    assert main(["chart", OXIDE, "--to", "300", "--step", "5", "--angles", "0:40:10", "--out",
+                 str(tmp_path / "g.pdf"), "--csv", str(table)]) == 0
+    assert len(table.read_text().splitlines()) == 1 + 61 * 5
+
+
+def test_match(capsys):
+    assert main(["colour", OXIDE, "--thickness", "300", "--json"]) == 0
+    hex_colour = json.loads(capsys.readouterr().out)["hex"]
+    assert main(["match", OXIDE, "--colour", hex_colour, "--range", "0:1000", "--tolerance", "3", "--json"]) == 0
+    found = json.loads(capsys.readouterr().out)["candidates"]
+    assert abs(found[0]["thickness_nm"] - 300) <= 2 and found[0]["delta_E"] < 1.0
+    assert main(["match", OXIDE, "--colour", "purple"]) == 2

@@ -63,3 +63,105 @@ def test_srgb_matrix_matches_iec_table():
     from filmcalc.colour import _XYZ_TO_SRGB
     iec = [[3.2406, -1.5372, -0.4986], [-0.9689, 1.8758, 0.0415], [0.0557, -0.2040, 1.0570]]
     assert _XYZ_TO_SRGB == pytest.approx(np.array(iec), abs=6e-4)
+
+
+# --- CIELAB, Oklab, CIEDE2000 ---------------------------------------------------------
+
+from filmcalc.colour import (XYZ_to_Lab, XYZ_to_Oklab, Lab_to_XYZ, XYZ_to_uv, XYZ_to_xy, CameraResponse,  # noqa: E402
+                             camera_kernel, delta_E_2000, hue_family, parse_colour, spectral_locus, srgb_to_XYZ)
+
+D65_XYZ = np.array([95.047, 100.0, 108.883])
+
+
+@pytest.mark.parametrize("lab1, lab2, expected", [
+    pytest.param((50, 2.6772, -79.7751), (50, 0, -82.7485), 2.0425, id="Sharma 2005 pair 1"),
+    pytest.param((50, 0, 0), (50, -1, 2), 2.3669, id="Sharma 2005 pair 7"),
+    pytest.param((50, 2.5, 0), (73, 25, -18), 27.1492, id="Sharma 2005 pair 17"),
+    pytest.param((2.0776, 0.0795, -1.1350), (0.9033, -0.0636, -0.5514), 0.9082, id="Sharma 2005 pair 34"),
+])
+def test_ciede2000_published_pairs(lab1, lab2, expected):
+    # Sharma, Wu & Dalal 2005, Color Res. Appl. 30, 21, Table 1.
+    assert delta_E_2000(lab1, lab2) == pytest.approx(expected, abs=1e-4)
+    assert delta_E_2000(lab2, lab1) == pytest.approx(expected, abs=1e-4)
+
+
+def test_ciede2000_hue_wraparound_against_colour_science():
+    # Random pairs, including hue angles on both sides of 0°/360° (Sharma pairs 9–12
+    # exercise the same branch), against colour-science's independent implementation.
+    rng = np.random.default_rng(7)
+    a = rng.uniform([0, -100, -100], [100, 100, 100], (2000, 3))
+    b = a + rng.normal(0, 8, a.shape)
+    b[:200, 1:] = -a[:200, 1:] * 0.1  # near-opposite hues, small chroma
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref = colour.delta_E(a, b, method="CIE 2000")
+    assert delta_E_2000(a, b) == pytest.approx(ref, abs=1e-9)
+
+
+def test_cielab_and_oklab_against_colour_science():
+    # CIE 015:2018 §8.2.1 CIELAB and Ottosson 2020 Oklab, both against colour-science.
+    rng = np.random.default_rng(8)
+    XYZ = rng.uniform(0.1, 100, (200, 3))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        lab_ref = colour.XYZ_to_Lab(XYZ / 100, colour.XYZ_to_xy(D65_XYZ / 100))
+        ok_ref = colour.XYZ_to_Oklab(XYZ / 100)
+    assert XYZ_to_Lab(XYZ, D65_XYZ) == pytest.approx(lab_ref, abs=1e-9)
+    assert Lab_to_XYZ(XYZ_to_Lab(XYZ, D65_XYZ), D65_XYZ) == pytest.approx(XYZ, rel=1e-12)
+    # Our Oklab adapts the light's white to the sRGB D65 (0.3127, 0.3290): pass exactly that white.
+    white = np.array([0.3127 / 0.3290, 1.0, (1 - 0.3127 - 0.3290) / 0.3290]) * 100
+    assert XYZ_to_Oklab(XYZ, white) == pytest.approx(ok_ref, abs=1e-6)
+
+
+def test_chromaticity_coordinates():
+    # CIE 015:2018 eqs. 7.3 and 8.1 on the D65 white: xy (0.3127, 0.3290), u'v' (0.1978, 0.4683).
+    assert XYZ_to_xy(D65_XYZ) == pytest.approx([0.3127, 0.3290], abs=1e-4)
+    assert XYZ_to_uv(D65_XYZ) == pytest.approx([0.1978, 0.4683], abs=1e-4)
+    locus = spectral_locus("2")
+    assert locus[locus[:, 0] == 520.0, 1:][0] == pytest.approx([0.0743, 0.8338], abs=1e-3)  # CIE 1931 table value, from memory
+
+
+def test_srgb_round_trip_in_gamut():
+    rng = np.random.default_rng(9)
+    srgb = rng.uniform(0.02, 0.98, (100, 3))
+    k = colour_kernel("A")
+    XYZ = srgb_to_XYZ(srgb, k.white_XYZ)
+    back, out = XYZ_to_srgb(XYZ, k.white_XYZ)
+    assert back == pytest.approx(srgb, abs=1e-9) and not out.any()
+
+
+def test_parse_colour():
+    assert parse_colour("#ffffff", D65_XYZ) == pytest.approx([100, 0, 0], abs=0.05)
+    assert parse_colour("lab:50,10,-20", D65_XYZ).tolist() == [50, 10, -20]
+    assert parse_colour("srgb:1,1,1", D65_XYZ) == pytest.approx([100, 0, 0], abs=0.05)
+    with pytest.raises(FilmcalcError, match="#RRGGBB"):
+        parse_colour("blue-ish", D65_XYZ)
+
+
+def test_hue_families_from_css_anchors():
+    # The anchors are CSS Color 4 named colours; each must fall in its own family,
+    # and an orange-red between red and orange goes to the nearer anchor.
+    assert hue_family(parse_colour("#ff0000", D65_XYZ)) == "red"
+    assert hue_family(parse_colour("#4169e1", D65_XYZ)) == "blue"
+    assert hue_family(parse_colour("#008000", D65_XYZ)) == "green"
+    assert hue_family(parse_colour("#c71585", D65_XYZ)) == "magenta"  # medium violet red
+    assert hue_family(parse_colour("#ffd700", D65_XYZ)) == "yellow"  # gold
+
+
+def test_light_names():
+    assert np.allclose(colour_kernel("F2").weights, colour_kernel("FL2").weights)  # CIE name vs colour-science's
+    assert colour_kernel("sodium").wavelength_nm.tolist() == [588.995, 589.592]
+    assert colour_kernel("mercury").wavelength_nm.size == 3
+    assert colour_kernel("D65", "10").white_xy == pytest.approx([0.31382, 0.33100], abs=2e-4)  # CIE 015 Table 11.3 (from memory)
+
+
+def test_camera_with_cie_sensitivities_is_von_kries_xyz():
+    # A "camera" whose sensitivities are the CIE 1931 functions, balanced on the
+    # scene light, reads XYZ divided channel-wise by the white's XYZ.
+    cmfs = colour.MSDS_CMFS["CIE 1931 2 Degree Standard Observer"]
+    cam = CameraResponse(cmfs.wavelengths, cmfs.values, "cie")
+    k = colour_kernel("A")
+    ck = camera_kernel(cam, "A")
+    R = 0.3 + 0.2 * np.cos(k.wavelength_nm / 30)
+    assert reflectance_to_XYZ(R, ck) == pytest.approx(100 * reflectance_to_XYZ(R, k) / k.white_XYZ, rel=1e-9)
+    assert reflectance_to_XYZ(np.ones(k.wavelength_nm.size), ck) == pytest.approx([100, 100, 100])
