@@ -22,7 +22,7 @@ import dataclasses
 
 import numpy as np
 
-from .colour import XYZ_to_Lab, XYZ_to_srgb, XYZ_to_xy, colour_kernel, delta_E_2000
+from .colour import XYZ_to_Lab, XYZ_to_srgb, XYZ_to_xy, colour_kernel, delta_E_2000, srgb_to_hex_array
 from .errors import FilmcalcError
 from .optics import cone_angles, stack_indices, thickness_sweep
 
@@ -83,11 +83,16 @@ class FilmColours:
         """CIE 1931 chromaticity, shape (A, D, 2)."""
         return XYZ_to_xy(self.XYZ)
 
-    def hex(self):
-        """'#rrggbb' strings, shape (A, D)."""
-        rgb8 = np.rint(np.clip(self.srgb, 0, 1) * 255).astype(int)
-        codes = rgb8[..., 0] * 65536 + rgb8[..., 1] * 256 + rgb8[..., 2]
-        return np.vectorize(lambda c: f"#{c:06x}")(codes)
+    def at_angle(self, index):
+        """The same colours for one angle only (index into ``angle_deg``)."""
+        keep = slice(index, index + 1)
+        return dataclasses.replace(self, angle_deg=self.angle_deg[keep], XYZ=self.XYZ[keep], srgb=self.srgb[keep],
+                                   out_of_gamut=self.out_of_gamut[keep], Lab=self.Lab[keep],
+                                   Y_reflectance=self.Y_reflectance[keep])
+
+    def hex(self, rows=slice(None), cols=slice(None)):
+        """'#rrggbb' strings, shape (A, D), or for the given angle rows and thickness columns."""
+        return srgb_to_hex_array(self.srgb[rows][:, cols])
 
 
 def _sweep_xyz(n, d, coherent, film, dz, wl, angles, weights, polarisation):

@@ -27,8 +27,9 @@ the charts then show the intensity fringes.
 
 from __future__ import annotations
 
-import dataclasses
+import base64
 import datetime as _dt
+import io
 import textwrap
 
 import numpy as np
@@ -84,7 +85,7 @@ def _hover_overlay(colours, unit):
     A, D = colours.Lab.shape[:2]
     ia = np.arange(0, A, max(1, int(np.ceil(A / 40))))
     idz = np.arange(0, D, max(1, int(np.ceil(D / 400))))
-    hexes = colours.hex()[np.ix_(ia, idz)]
+    hexes = colours.hex(ia, idz)
     lab = colours.Lab[np.ix_(ia, idz)]
     Y = colours.Y_reflectance[np.ix_(ia, idz)]
     custom = np.stack([hexes, *(np.round(lab[..., i], 1).astype(str) for i in range(3)),
@@ -97,13 +98,23 @@ def _hover_overlay(colours, unit):
                        "luminous reflectance %{customdata[4]} %<extra></extra>"))
 
 
+def _png_data_uri(rgb8):
+    """An RGB uint8 array as a PNG data URI (far lighter for the browser than a JSON array)."""
+    from PIL import Image
+
+    buffer = io.BytesIO()
+    Image.fromarray(np.ascontiguousarray(rgb8)).save(buffer, format="PNG")
+    return "data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
 def _image(colours, unit, rows):
     name, f = thickness_unit(unit)
     d = colours.thickness_nm * f
     dx = (d[-1] - d[0]) / max(len(d) - 1, 1) if len(d) > 1 else 1.0
     a = colours.angle_deg
     dy = (a[-1] - a[0]) / max(len(a) - 1, 1) if len(a) > 1 else 1.0
-    return go.Image(z=_rgb8(colours)[rows], x0=d[0], dx=dx, y0=a[0], dy=dy, hoverinfo="skip")
+    return go.Image(source=_png_data_uri(_rgb8(colours)[rows]), x0=d[0], dx=dx, y0=a[0], dy=dy,
+                    hoverinfo="skip")
 
 
 def _light_note(colours):
@@ -132,7 +143,7 @@ def colour_strip_figure(colours, stack, unit="nm", title=None):
     name, f = thickness_unit(unit)
     fig = go.Figure([_image(colours, unit, slice(0, 1))])
     fig.data[0].update(dy=1.0, y0=0.0)  # one row of pixels centred on y = 0
-    overlay = _hover_overlay(_first_angle(colours), unit)
+    overlay = _hover_overlay(colours.at_angle(0), unit)
     overlay.update(y=[0.0])
     fig.add_trace(overlay)
     orders = fringe_order(stack, colours.thickness_nm, colours.angle_deg[0])
@@ -149,13 +160,6 @@ def colour_strip_figure(colours, stack, unit="nm", title=None):
                       xaxis_title=f"film thickness ({name}){order_note}<br>{_light_note(colours)}")
     fig.update_yaxes(visible=False, scaleanchor=False, range=[-0.5, 0.5])
     return fig
-
-
-def _first_angle(colours):
-    keep = slice(0, 1)
-    return dataclasses.replace(colours, angle_deg=colours.angle_deg[keep], XYZ=colours.XYZ[keep],
-                               srgb=colours.srgb[keep], out_of_gamut=colours.out_of_gamut[keep],
-                               Lab=colours.Lab[keep], Y_reflectance=colours.Y_reflectance[keep])
 
 
 def thickness_angle_figure(colours, stack, unit="nm", title=None):

@@ -59,7 +59,7 @@ with warnings.catch_warnings():  # colour-science warns when matplotlib is absen
     import colour as _cs
 
 __all__ = ["ColourKernel", "colour_kernel", "light_spectrum", "reflectance_to_XYZ", "XYZ_to_srgb", "srgb_to_XYZ",
-           "srgb_encode", "srgb_decode", "srgb_to_hex", "XYZ_to_xy", "XYZ_to_uv", "XYZ_to_Lab", "Lab_to_XYZ",
+           "srgb_encode", "srgb_decode", "srgb_to_hex", "srgb_to_hex_array", "XYZ_to_xy", "XYZ_to_uv", "XYZ_to_Lab", "Lab_to_XYZ",
            "XYZ_to_Oklab", "delta_E_2000", "parse_colour", "CameraResponse", "load_camera_csv",
            "camera_kernel", "spectral_locus", "hue_family", "HUE_ANCHORS", "OBSERVERS", "DEFAULT_WAVELENGTHS_NM", "LINE_SOURCES"]
 
@@ -301,6 +301,13 @@ def XYZ_to_srgb(XYZ, white_XYZ):
     linear = (np.asarray(XYZ, dtype=float) / 100.0) @ _adaptation_matrix(np.asarray(white_XYZ, float)).T
     out = np.any((linear < -1e-3) | (linear > 1 + 1e-3), axis=-1)
     return srgb_encode(np.clip(linear, 0.0, 1.0)), out
+
+
+def srgb_to_hex_array(srgb):
+    """'#rrggbb' strings for an array of encoded sRGB triples (..., 3) → (...)."""
+    rgb8 = np.rint(np.clip(np.asarray(srgb, dtype=float), 0, 1) * 255).astype(np.int64)
+    codes = (rgb8[..., 0] << 16) | (rgb8[..., 1] << 8) | rgb8[..., 2]
+    return np.array(["#%06x" % c for c in codes.ravel()], dtype="<U7").reshape(codes.shape)
 
 
 def srgb_to_hex(srgb):

@@ -49,6 +49,7 @@ __all__ = [
     "AirIndex",
     "load_material_csv",
     "material_from_spec",
+    "spec_from_text",
     "built_in_material",
     "BUILT_IN",
 ]
@@ -482,6 +483,28 @@ def load_material_csv(path, name=None):
                 f"{', '.join(rows[0])}, got {row!r}."
             ) from None
     return TabulatedIndex(wl, n, k, name=name, source=f"user table {path.name}", spec=str(path))
+
+
+def spec_from_text(text):
+    """A short typed material → a stack-file material value.
+
+    ``"silicon"`` → ``"silicon"``; ``"n=1.47"`` or ``"n=2.5, k=3.4"`` →
+    ``{n = …, k = …}``; ``"cauchy=1.62, 0.0135"`` → ``{cauchy = [...]}``.
+    """
+    t = str(text).strip()
+    low = t.lower().replace(" ", "")
+    try:
+        if low.startswith("cauchy="):
+            return {"cauchy": [float(v) for v in low[7:].split(",") if v]}
+        if low.startswith("n="):
+            parts = dict(p.split("=", 1) for p in low.split(","))
+            if set(parts) - {"n", "k"}:
+                raise ValueError
+            return {key: float(v) for key, v in parts.items()}
+    except ValueError:
+        raise FilmcalcError(f"Material {text!r} not understood: write a built-in name, n=1.47, n=2.5,k=3.4 "
+                            "or cauchy=A,B,C.") from None
+    return t
 
 
 def material_from_spec(spec, base_dir=None):

@@ -43,7 +43,8 @@ import tomli_w
 from .errors import FilmcalcError
 from .materials import Material, material_from_spec
 
-__all__ = ["Layer", "Light", "Stack", "load_stack", "loads_stack", "save_stack", "dumps_stack",
+__all__ = ["Layer", "Light", "Stack", "load_stack", "loads_stack", "save_stack", "dumps_stack", "stack_from_dict",
+           "stack_to_dict",
            "POLARISATIONS"]
 
 POLARISATIONS = ("unpolarised", "s", "p")

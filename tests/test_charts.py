@@ -35,7 +35,11 @@ def test_units():
 def test_thickness_angle_figure(grid):
     fig = thickness_angle_figure(grid, STACK, unit="µm")
     image, overlay = fig.data
-    assert image.type == "image" and np.asarray(image.z).shape == (31, 501, 3)
+    assert image.type == "image" and image.source.startswith("data:image/png;base64,")
+    from PIL import Image
+    import base64, io
+    png = Image.open(io.BytesIO(base64.b64decode(image.source.split(",", 1)[1])))
+    assert png.size == (501, 31)
     assert image.x0 == 0 and image.dx == pytest.approx(0.002)  # µm per column
     assert "L* %{customdata[1]}" in overlay.hovertemplate and "µm" in overlay.hovertemplate
     assert overlay.customdata[0][0][0].startswith("#")

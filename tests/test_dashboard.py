@@ -42,3 +42,46 @@ def test_safety_page():
     assert not at.exception
     text = " ".join(md.value for md in at.markdown)
     assert "IEC 60825-1" in text and "fume hood" in text
+
+
+def test_colour_charts_page_every_demo():
+    at = run_page("colour_charts.py", timeout=120)
+    assert not at.exception
+    for name in at.sidebar.selectbox[0].options:
+        at.sidebar.selectbox[0].set_value(name).run()
+        assert not at.exception, name
+        assert not at.error, name
+        assert len(at.get("plotly_chart")) >= 4, name
+
+
+def test_colour_charts_match_and_bad_colour():
+    at = run_page("colour_charts.py", timeout=120)
+    at.sidebar.selectbox[0].set_value("thermal oxide coupon on silicon").run()
+    at.text_input(key="match_text").set_value("#5b6aa5").run()
+    assert not at.exception and not at.error
+    table = at.dataframe[0].value
+    assert len(table) >= 2 and table["ΔE00"].is_monotonic_increasing  # candidates, best first
+    at.text_input(key="match_text").set_value("bluish").run()
+    assert not at.exception
+    assert any("not understood" in e.value for e in at.error)
+
+
+def test_bad_uploaded_stack_shows_error_not_traceback():
+    at = AppTest.from_file(str(ROOT / "filmcalc" / "ui" / "film_spectrum.py"), default_timeout=60)
+    at.session_state["uploaded_stack"] = ("broken.toml", "[ambient\nmaterial = 'air'")
+    at.session_state["stack_choice_saved"] = "Uploaded: broken.toml"
+    at.run()
+    assert not at.exception
+    assert any("broken.toml" in e.value and "line" in e.value for e in at.error)
+
+
+def test_stack_builder_builds_and_shares():
+    at = run_page("stack_builder.py")
+    assert not at.exception and not at.error
+    assert any("valid" in s.value for s in at.success)
+    substrate = "builder::soap-film-loop.toml::substrate"
+    at.text_input(key=substrate).set_value("unobtainium").run()
+    assert any("Unknown material 'unobtainium'" in e.value for e in at.error)
+    at.text_input(key=substrate).set_value("n=2.5, k=3.4").run()
+    at.button[0].click().run()
+    assert "k = 3.4" in at.session_state["builder_text"]

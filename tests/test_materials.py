@@ -129,3 +129,12 @@ def test_models_match_their_formulas():
     assert CauchyIndex(1.5, 0.004, 0.0002).index(1000.0) == pytest.approx(1.5042)
     n2 = 1 + 0.6961663 / (1 - 0.0684043**2)
     assert SellmeierIndex([0.6961663], [0.0684043**2]).index(1000.0) == pytest.approx(np.sqrt(n2))
+
+
+def test_short_typed_materials():
+    from filmcalc.materials import spec_from_text
+    assert spec_from_text(" silicon ") == "silicon"
+    assert spec_from_text("n=2.5, k=3.4") == {"n": 2.5, "k": 3.4}
+    assert spec_from_text("cauchy=1.62,0.0135") == {"cauchy": [1.62, 0.0135]}
+    with pytest.raises(FilmcalcError, match="not understood"):
+        spec_from_text("n=abc")

@@ -7,8 +7,10 @@ from pathlib import Path
 import numpy as np
 import streamlit as st
 
+from filmcalc.appearance import film_colours
 from filmcalc.colour import XYZ_to_srgb, colour_kernel, reflectance_to_XYZ, srgb_to_hex
-from filmcalc.optics import stack_reflectance
+from filmcalc.errors import FilmcalcError
+from filmcalc.optics import reflectance_sweep, stack_reflectance
 from filmcalc.stack import load_stack, loads_stack
 
 DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
@@ -31,6 +33,65 @@ def demo_stacks():
     return {load_stack(path).name: path for path in paths}
 
 
+BUILDER_CHOICE = "Your stack (from the Stack builder page)"
+UPLOAD_CHOICE_PREFIX = "Uploaded: "
+
+
+def _remember(key):
+    st.session_state[key + "_saved"] = st.session_state[key]
+
+
+def stack_picker():
+    """Sidebar control shared by the pages: which stack to work on.
+
+    The choice, an uploaded file's text and the builder's stack live in
+    session state, so they survive moving between pages.
+
+    Returns
+    -------
+    text, base_dir, origin : str, str or None, str
+        The stack file's text, the folder relative paths resolve against, and
+        a name to show in messages.
+    """
+    demos = demo_stacks()
+    options = list(demos)
+    uploaded = st.session_state.get("uploaded_stack")
+    if uploaded:
+        options.append(UPLOAD_CHOICE_PREFIX + uploaded[0])
+    if st.session_state.get("builder_text"):
+        options.append(BUILDER_CHOICE)
+    saved = st.session_state.get("stack_choice_saved", options[0])
+    with st.sidebar:
+        st.header("Stack")
+        choice = st.selectbox("Sample", options, index=options.index(saved) if saved in options else 0,
+                              key="stack_choice", on_change=_remember, args=("stack_choice",),
+                              help="Demo samples are invented; their stack files are in demo_data/.")
+        upload = st.file_uploader("Load a stack file (TOML)", type=["toml"], key="stack_upload",
+                                  help="Used only in this browser session; not part of shared links.")
+    if upload is not None and (not uploaded or uploaded[0] != upload.name):
+        st.session_state["uploaded_stack"] = (upload.name, upload.getvalue().decode("utf-8", errors="replace"))
+        st.session_state["stack_choice_saved"] = UPLOAD_CHOICE_PREFIX + upload.name
+        st.rerun()
+    if choice == BUILDER_CHOICE:
+        return st.session_state["builder_text"], None, "your stack"
+    if choice.startswith(UPLOAD_CHOICE_PREFIX) and uploaded:
+        return uploaded[1], None, uploaded[0]
+    path = demos[choice]
+    return path.read_text(encoding="utf-8"), str(path.parent), path.name
+
+
+def load_or_stop(text, base_dir, origin, need_film=True):
+    """The parsed stack, or an error message on the page and a stop."""
+    try:
+        stack = stack_from_text(text, base_dir)
+        if need_film and stack.film_index is None:
+            raise FilmcalcError("This stack marks no layer as unknown = true; mark the film being measured.")
+    except FilmcalcError as exc:
+        st.error(f"{origin}: {exc}")
+        st.stop()
+    return stack
+
+
 @st.cache_data(show_spinner=False)
 def stack_from_text(text, base_dir):
     """Parse a stack file once per distinct text (errors propagate as FilmcalcError)."""
@@ -48,8 +109,7 @@ def spectrum_and_colour(text, base_dir, thickness_nm, angle_deg, polarisation="u
     XYZ = reflectance_to_XYZ(on_kernel.reflectance(polarisation), kernel, exposure)
     srgb, out_of_gamut = XYZ_to_srgb(XYZ, kernel.white_XYZ)
     return {
-        "wavelength_nm": wl, "R_s": spec.R_s, "R_p": spec.R_p, "R": spec.R, "warnings": spec.warnings,
-        "XYZ": XYZ, "hex": srgb_to_hex(srgb), "out_of_gamut": bool(out_of_gamut),
+        "spectrum": spec, "warnings": spec.warnings, "XYZ": XYZ, "hex": srgb_to_hex(srgb), "out_of_gamut": bool(out_of_gamut),
         "monochromatic": kernel.monochromatic,
     }
 
@@ -58,3 +118,21 @@ def cautions_box():
     """The short caution shown on every page."""
     st.caption("⚠️ " + MEASUREMENT_CAUTION + " Lasers, UV lamps, furnaces and the solvents or etchants used "
                "to make films can hurt you: see the Cautions page and follow your local safety rules.")
+
+
+@st.cache_data(show_spinner=False, max_entries=16)
+def cached_colours(text, base_dir, thickness_range, angle_range, observer, exposure, polarisation, na):
+    """Film colours over a thickness × angle grid, cached by every input that defines them."""
+    stack = loads_stack(text, base_dir=base_dir)
+    thickness = np.linspace(*thickness_range)
+    angles = np.linspace(*angle_range)
+    return film_colours(stack, thickness, angles, observer=observer, exposure=exposure,
+                        polarisation=polarisation, numerical_aperture=na)
+
+
+@st.cache_data(show_spinner=False, max_entries=8)
+def cached_reflectance_map(text, base_dir, thickness_range, angle_deg, na):
+    """Reflectance over thickness × wavelength (380–780 nm every 2 nm) at one angle."""
+    stack = loads_stack(text, base_dir=base_dir)
+    return reflectance_sweep(stack, np.arange(380.0, 781.0, 2.0), np.linspace(*thickness_range), [angle_deg],
+                             numerical_aperture=na)

@@ -1,11 +1,11 @@
 """Film spectrum page: choose a stack, move the film thickness, see R(λ) and the colour."""
 
-import plotly.graph_objects as go
 import streamlit as st
 
+from filmcalc.charts import spectrum_figure
 from filmcalc.errors import FilmcalcError
 from filmcalc.stack import POLARISATIONS
-from filmcalc.ui.common import cautions_box, demo_stacks, spectrum_and_colour, stack_from_text
+from filmcalc.ui.common import cautions_box, load_or_stop, spectrum_and_colour, stack_picker
 
 st.title("Film spectrum")
 st.write(
@@ -13,27 +13,8 @@ st.write(
     "light. Pick a demo sample or load your own stack file, then move the thickness."
 )
 
-demos = demo_stacks()
-with st.sidebar:
-    st.header("Stack")
-    choice = st.selectbox("Sample", list(demos), key="stack_choice",
-                          help="Demo samples are invented; their stack files are in demo_data/.")
-    upload = st.file_uploader("…or your own stack file (TOML)", type=["toml"], key="stack_upload",
-                              help="Uploaded files are used only in this browser session.")
-
-if upload is not None:
-    text, base_dir, origin = upload.getvalue().decode("utf-8", errors="replace"), None, upload.name
-else:
-    path = demos[choice]
-    text, base_dir, origin = path.read_text(encoding="utf-8"), str(path.parent), path.name
-
-try:
-    stack = stack_from_text(text, base_dir)
-    if stack.film_index is None:
-        raise FilmcalcError("This stack marks no layer as unknown = true; add it to the film being measured.")
-except FilmcalcError as exc:
-    st.error(f"{origin}: {exc}")
-    st.stop()
+text, base_dir, origin = stack_picker()
+stack = load_or_stop(text, base_dir, origin)
 
 film = stack.film
 with st.sidebar:
@@ -62,20 +43,8 @@ for warning in result["warnings"]:
 
 left, right = st.columns([3, 1])
 with left:
-    fig = go.Figure()
-    wl = result["wavelength_nm"]
-    shown = {"unpolarised": ("R", "unpolarised"), "s": ("R_s", "s"), "p": ("R_p", "p")}
-    for key, label in (("R_s", "s"), ("R_p", "p"), ("R", "unpolarised")):
-        selected = shown[polarisation][0] == key
-        fig.add_trace(go.Scatter(
-            x=wl, y=100 * result[key], name=label, mode="lines",
-            line={"width": 3 if selected else 1.2, "dash": "solid" if selected else "dot"},
-            hovertemplate="λ %{x:.0f} nm<br>R %{y:.2f} %<extra>" + label + "</extra>"))
-    fig.update_layout(
-        title=f"{stack.name}: {film.material.name} {thickness:.0f} nm at {angle:g}°",
-        xaxis_title="wavelength (nm)", yaxis_title="reflectance (%)", height=430,
-        margin={"l": 10, "r": 10, "t": 50, "b": 10}, legend={"orientation": "h", "y": -0.2})
-    fig.update_yaxes(rangemode="tozero")
+    fig = spectrum_figure(result["spectrum"], polarisation,
+                          f"{stack.name}: {film.material.name} {thickness:.0f} nm at {angle:g}°")
     st.plotly_chart(fig, width="stretch")
 
 with right:

@@ -1,0 +1,142 @@
+"""Colour charts page: what the film looks like over thickness and angle, and back."""
+
+import csv
+import io
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import streamlit as st
+
+from filmcalc.appearance import film_colours, match_colour
+from filmcalc.charts import (bench_chart, chromaticity_figure, colour_strip_figure, colour_table,
+                             reflectance_map_figure, save_bench_chart, spectrum_figure, thickness_angle_figure,
+                             thickness_unit)
+from filmcalc.colour import parse_colour
+from filmcalc.errors import FilmcalcError
+from filmcalc.optics import stack_reflectance
+from filmcalc.stack import POLARISATIONS
+from filmcalc.ui.common import cached_colours, cached_reflectance_map, cautions_box, load_or_stop, stack_picker
+
+st.title("Colour charts")
+st.write("The film's colour under the stack's light for every thickness and angle, a chart to print for the "
+         "bench, and the thicknesses a colour could mean.")
+
+text, base_dir, origin = stack_picker()
+stack = load_or_stop(text, base_dir, origin)
+
+with st.sidebar:
+    st.header("Chart")
+    t_max = st.number_input("Largest thickness (nm)", 50.0, 20000.0, 2000.0, 50.0, key="chart_tmax")
+    t_points = st.select_slider("Thickness points", [201, 501, 1001, 2001, 4001], value=2001, key="chart_tpoints")
+    a_max = st.slider("Largest angle (°)", 0.0, 80.0, 60.0, 5.0, key="chart_amax")
+    unit = st.radio("Thickness unit", ["nm", "µm", "Å"], horizontal=True, key="chart_unit")
+    polarisation = st.radio("Polarisation", POLARISATIONS, horizontal=True,
+                            index=POLARISATIONS.index(stack.light.polarisation), key="chart_pol")
+    exposure = st.slider("Exposure (×)", 0.5, 30.0, 1.0, 0.5, format="%.1f×", key="chart_exposure",
+                         help="1× shows the film beside a perfect white; soap films need about 10×.")
+    observer = st.radio("Observer", ["2", "10"], horizontal=True, key="chart_observer",
+                        format_func=lambda o: "CIE 1931 2°" if o == "2" else "CIE 1964 10°")
+    na = st.slider("Numerical aperture", 0.0, 0.9, float(stack.light.numerical_aperture), 0.05,
+                   key="chart_na", help="Averages each angle over a microscope objective's cone.")
+
+thickness_range = (0.0, float(t_max), int(t_points))
+angle_count = int(a_max) + 1 if a_max > 0 else 1
+angle_range = (0.0, float(a_max), angle_count)
+try:
+    with st.spinner("Computing colours…"):
+        colours = cached_colours(text, base_dir, thickness_range, angle_range, observer, float(exposure),
+                                 polarisation, float(na))
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+for warning in colours.warnings:
+    st.warning(warning)
+if colours.monochromatic:
+    st.info("Line light: the charts show the intensity fringes in the colour of the line.")
+
+view_angle = st.slider("Angle for the strip, path and matching (°)", 0.0, float(a_max), float(min(stack.light.angle_deg,
+                     a_max)), 1.0 if a_max else 0.0, key="chart_angle") if a_max > 0 else 0.0
+row = int(round(view_angle))  # angles are every 1°
+one = colours.at_angle(row)
+
+tabs = st.tabs(["Thickness × angle", "Colour strip", "Reflectance map", "Colour path", "Spectrum",
+                "Colour → thickness", "Printable chart"])
+with tabs[0]:
+    if a_max > 0:
+        st.plotly_chart(thickness_angle_figure(colours, stack, unit), width="stretch")
+    else:
+        st.info("Raise the largest angle to see colours over angle.")
+with tabs[1]:
+    st.plotly_chart(colour_strip_figure(one, stack, unit), width="stretch")
+with tabs[2]:
+    with st.spinner("Computing reflectance…"):
+        refl = cached_reflectance_map(text, base_dir, (0.0, float(t_max), min(int(t_points), 1001)), view_angle,
+                                      float(na))
+    st.plotly_chart(reflectance_map_figure(refl, np.linspace(0.0, t_max, min(int(t_points), 1001)), stack,
+                                           polarisation, unit), width="stretch")
+with tabs[3]:
+    space = st.radio("Diagram", ["xy", "uv"], horizontal=True, key="chart_space",
+                     format_func=lambda s: "CIE 1931 xy" if s == "xy" else "CIE 1976 u′v′")
+    st.plotly_chart(chromaticity_figure(one, space, label_every_nm=100.0 if t_max <= 3000 else 500.0, unit=unit),
+                    width="stretch")
+with tabs[4]:
+    d_spec = st.number_input("Film thickness (nm)", 0.0, 20000.0, float(min(stack.film.thickness_nm, t_max)),
+                             1.0, key="chart_spec_d")
+    spec = stack_reflectance(stack, np.arange(380.0, 781.0, 1.0), d_spec, view_angle, na)
+    st.plotly_chart(spectrum_figure(spec, polarisation, f"{d_spec:g} nm at {view_angle:g}°"), width="stretch")
+with tabs[5]:
+    st.write("Type or pick the colour you see; every thickness within the tolerance is listed, best first, "
+             "with its fringe order at 550 nm. Colours repeat at higher orders: use what else you know "
+             "(neighbouring colours, a bare-substrate reference, the expected range) to choose.")
+    c1, c2, c3 = st.columns(3)
+    picked = c1.color_picker("Colour", "#5b6aa5", key="match_picker")
+    typed = c2.text_input("…or type it", "", placeholder="#RRGGBB, srgb:R,G,B or lab:L,a,b", key="match_text")
+    tolerance = c3.slider("Tolerance ΔE00", 0.5, 15.0, 5.0, 0.5, key="match_tol")
+    try:
+        target = parse_colour(typed or picked, colours.white_XYZ)
+        found = match_colour(target, one, tolerance, stack)
+    except FilmcalcError as exc:
+        st.error(str(exc))
+        found = None
+    if found == []:
+        st.warning("No thickness in the chart's range comes that close: raise the tolerance, widen the range, "
+                   "or check the light, exposure and stack.")
+    elif found:
+        name_f = thickness_unit(unit)[1]
+        st.dataframe([{"colour": c["hex"], f"thickness ({unit})": round(c["thickness_nm"] * name_f, 4),
+                       "ΔE00": round(c["delta_E"], 2), "fringe order": c["order"],
+                       f"within tolerance from ({unit})": round(c["from_nm"] * name_f, 4),
+                       f"to ({unit})": round(c["to_nm"] * name_f, 4)} for c in found],
+                     hide_index=True, width="stretch")
+with tabs[6]:
+    st.write("Swatches for this stack, light and angle, with a title block, ready to print. Printed colours "
+             "depend on the printer and on the light the chart is viewed under.")
+    c1, c2, c3 = st.columns(3)
+    step = c1.number_input("Step (nm)", 1.0, 500.0, 10.0, 1.0, key="print_step")
+    top = c2.number_input("Up to (nm)", step, 20000.0, min(600.0, float(t_max)), step, key="print_top")
+    paper = c3.radio("Paper", ["A4", "Letter"], horizontal=True, key="print_paper")
+    thickness = np.arange(0.0, top + step / 2, step)
+    if thickness.size > 240:
+        st.error(f"{thickness.size} swatches do not fit on a page: raise the step or lower the largest thickness.")
+    else:
+        swatches = film_colours(stack, thickness, [view_angle], observer=observer, exposure=exposure,
+                                polarisation=polarisation, numerical_aperture=na)
+        fig = bench_chart(swatches, stack, unit, paper)
+        files = {}
+        with tempfile.TemporaryDirectory() as tmp:
+            for ext in ("png", "pdf"):
+                path = Path(tmp) / f"chart.{ext}"
+                save_bench_chart(fig, path)
+                files[ext] = path.read_bytes()
+        st.image(files["png"], width=520)
+        rows = colour_table(swatches)
+        buffer = io.StringIO()
+        writer = csv.DictWriter(buffer, fieldnames=list(rows[0]))
+        writer.writeheader()
+        writer.writerows(rows)
+        d1, d2, d3 = st.columns(3)
+        d1.download_button("Download PDF", files["pdf"], "filmcalc-chart.pdf", "application/pdf")
+        d2.download_button("Download PNG", files["png"], "filmcalc-chart.png", "image/png")
+        d3.download_button("Download CSV", buffer.getvalue(), "filmcalc-chart.csv", "text/csv")
+cautions_box()
