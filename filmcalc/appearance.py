@@ -83,6 +83,20 @@ class FilmColours:
         """CIE 1931 chromaticity, shape (A, D, 2)."""
         return XYZ_to_xy(self.XYZ)
 
+    def with_exposure(self, exposure):
+        """The same film at another exposure (colours recomputed from XYZ)."""
+        if not np.isfinite(exposure) or exposure <= 0:
+            raise FilmcalcError(f"Exposure must be a number > 0 (got {exposure}).")
+        XYZ = self.XYZ * (exposure / self.exposure)
+        srgb, out = XYZ_to_srgb(XYZ, self.white_XYZ)
+        return dataclasses.replace(self, XYZ=XYZ, srgb=srgb, out_of_gamut=out, Lab=XYZ_to_Lab(XYZ, self.white_XYZ),
+                                   exposure=float(exposure))
+
+    def auto_exposure(self, target_Y=90.0, largest=30.0):
+        """Exposure that brings the brightest colour on the grid to Y = ``target_Y`` (at most ``largest``)."""
+        brightest = float(np.max(self.Y_reflectance))
+        return float(min(largest, target_Y / brightest)) if brightest > 0 else 1.0
+
     def at_angle(self, index):
         """The same colours for one angle only (index into ``angle_deg``)."""
         keep = slice(index, index + 1)

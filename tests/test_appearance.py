@@ -188,3 +188,14 @@ def test_bad_inputs():
         film_colours(OXIDE, [100.0], exposure=0)
     with pytest.raises(FilmcalcError, match="Unknown light"):
         film_colours(free_film(source="candle"), [100.0])
+
+
+def test_exposure_rescales_consistently():
+    d = np.linspace(0, 600, 61)
+    one = film_colours(free_film(), d)
+    ten = film_colours(free_film(), d, exposure=10.0)
+    again = one.with_exposure(10.0)
+    assert again.XYZ == pytest.approx(ten.XYZ, rel=1e-12) and again.Lab == pytest.approx(ten.Lab, abs=1e-9)
+    auto = one.auto_exposure(target_Y=90.0)
+    # Water film: peak reflectance 4R/(1+R)² ≈ 7.8 % (Born & Wolf §7.6.1), so about 11.5×.
+    assert 90.0 / auto == pytest.approx(one.Y_reflectance.max()) and 10 < auto < 14

@@ -57,6 +57,7 @@ def test_colour_charts_page_every_demo():
 def test_colour_charts_match_and_bad_colour():
     at = run_page("colour_charts.py", timeout=120)
     at.sidebar.selectbox[0].set_value("thermal oxide coupon on silicon").run()
+    at.toggle(key="chart_auto").set_value(False).run()  # exposure 1: colours as beside a white card
     at.text_input(key="match_text").set_value("#5b6aa5").run()
     assert not at.exception and not at.error
     table = at.dataframe[0].value

@@ -29,12 +29,15 @@ with st.sidebar:
     st.header("Chart")
     t_max = st.number_input("Largest thickness (nm)", 50.0, 20000.0, 2000.0, 50.0, key="chart_tmax")
     t_points = st.select_slider("Thickness points", [201, 501, 1001, 2001, 4001], value=2001, key="chart_tpoints")
-    a_max = st.slider("Largest angle (°)", 0.0, 80.0, 60.0, 5.0, key="chart_amax")
+    a_max = st.slider("Largest angle (°)", 0.0, 80.0, 60.0, 5.0, format="%.0f°", key="chart_amax")
     unit = st.radio("Thickness unit", ["nm", "µm", "Å"], horizontal=True, key="chart_unit")
     polarisation = st.radio("Polarisation", POLARISATIONS, horizontal=True,
                             index=POLARISATIONS.index(stack.light.polarisation), key="chart_pol")
-    exposure = st.slider("Exposure (×)", 0.5, 30.0, 1.0, 0.5, format="%.1f×", key="chart_exposure",
-                         help="1× shows the film beside a perfect white; soap films need about 10×.")
+    auto = st.toggle("Automatic exposure", True, key="chart_auto",
+                     help="Scale the light so the brightest colour on the chart is near white, as a camera "
+                          "exposed for the film would. Off: set it yourself (1× = beside a perfect white).")
+    exposure = None if auto else st.slider("Exposure (×)", 0.5, 30.0, 1.0, 0.5, format="%.1f×",
+                                           key="chart_exposure")
     observer = st.radio("Observer", ["2", "10"], horizontal=True, key="chart_observer",
                         format_func=lambda o: "CIE 1931 2°" if o == "2" else "CIE 1964 10°")
     na = st.slider("Numerical aperture", 0.0, 0.9, float(stack.light.numerical_aperture), 0.05,
@@ -45,18 +48,21 @@ angle_count = int(a_max) + 1 if a_max > 0 else 1
 angle_range = (0.0, float(a_max), angle_count)
 try:
     with st.spinner("Computing colours…"):
-        colours = cached_colours(text, base_dir, thickness_range, angle_range, observer, float(exposure),
-                                 polarisation, float(na))
+        colours = cached_colours(text, base_dir, thickness_range, angle_range, observer, polarisation, float(na))
+    colours = colours.with_exposure(colours.auto_exposure() if auto else exposure)
 except FilmcalcError as exc:
     st.error(str(exc))
     st.stop()
 for warning in colours.warnings:
     st.warning(warning)
+if auto:
+    st.caption(f"Automatic exposure {colours.exposure:.3g}×: the brightest film colour on the chart (luminous "
+               f"reflectance {colours.Y_reflectance.max():.3g} %) is shown near white.")
 if colours.monochromatic:
     st.info("Line light: the charts show the intensity fringes in the colour of the line.")
 
 view_angle = st.slider("Angle for the strip, path and matching (°)", 0.0, float(a_max), float(min(stack.light.angle_deg,
-                     a_max)), 1.0 if a_max else 0.0, key="chart_angle") if a_max > 0 else 0.0
+                     a_max)), 1.0, format="%.0f°", key="chart_angle") if a_max > 0 else 0.0
 row = int(round(view_angle))  # angles are every 1°
 one = colours.at_angle(row)
 
@@ -120,7 +126,7 @@ with tabs[6]:
     if thickness.size > 240:
         st.error(f"{thickness.size} swatches do not fit on a page: raise the step or lower the largest thickness.")
     else:
-        swatches = film_colours(stack, thickness, [view_angle], observer=observer, exposure=exposure,
+        swatches = film_colours(stack, thickness, [view_angle], observer=observer, exposure=colours.exposure,
                                 polarisation=polarisation, numerical_aperture=na)
         fig = bench_chart(swatches, stack, unit, paper)
         files = {}

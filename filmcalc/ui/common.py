@@ -121,13 +121,13 @@ def cautions_box():
 
 
 @st.cache_data(show_spinner=False, max_entries=16)
-def cached_colours(text, base_dir, thickness_range, angle_range, observer, exposure, polarisation, na):
-    """Film colours over a thickness × angle grid, cached by every input that defines them."""
+def cached_colours(text, base_dir, thickness_range, angle_range, observer, polarisation, na):
+    """Film colours (exposure 1) over a thickness × angle grid, cached by every input that defines them."""
     stack = loads_stack(text, base_dir=base_dir)
     thickness = np.linspace(*thickness_range)
     angles = np.linspace(*angle_range)
-    return film_colours(stack, thickness, angles, observer=observer, exposure=exposure,
-                        polarisation=polarisation, numerical_aperture=na)
+    return film_colours(stack, thickness, angles, observer=observer, polarisation=polarisation,
+                        numerical_aperture=na)
 
 
 @st.cache_data(show_spinner=False, max_entries=8)
