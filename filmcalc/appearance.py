@@ -113,8 +113,9 @@ def _sweep_xyz(n, d, coherent, film, dz, wl, angles, weights, polarisation):
     """XYZ over (angles, thickness), without keeping the full spectral cube."""
     out = np.zeros((angles.size, dz.size, 3))
     pols = ("s", "p") if polarisation == "unpolarised" else (polarisation,)
-    # Chunks of about 8 M reflectances keep memory near 65 MB per polarisation.
-    step = max(1, (8 << 20) // max(dz.size * wl.size, 1))
+    # Chunks of about 1 M reflectances (8 MB) are reused by the allocator from one
+    # chunk to the next, so memory stays small and no time goes on fresh pages.
+    step = max(1, (1 << 20) // max(dz.size * wl.size, 1))
     for a0 in range(0, angles.size, step):
         sl = slice(a0, a0 + step)
         for pol in pols:
