@@ -24,6 +24,7 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_sweep.py
+	$(BIN)/python benchmarks/bench_chart.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache .hypothesis
