@@ -1,0 +1,128 @@
+"""Invented thickness fields and photos rendered from them with the forward model.
+
+Public names
+------------
+wedge, dome, steps, draining_soap_film, edge_bead, oil_lens
+    Ground-truth thickness fields (nm) on a pixel grid.
+CameraSettings, render_photo
+    Render a field as a camera would record it: film colour, camera
+    correction (white-balance and exposure errors, a colour matrix), noise,
+    clipping, sRGB encoding, optional JPEG compression.
+
+Used by the demo-data script, the tests and the benchmarks; every random
+number is seeded. The fields are invented, not measurements.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import io
+
+import numpy as np
+
+from .colour import srgb_encode
+from .thickness import build_lookup
+
+__all__ = ["wedge", "dome", "steps", "draining_soap_film", "edge_bead", "oil_lens", "CameraSettings",
+           "render_photo"]
+
+
+def _grid(shape):
+    h, w = shape
+    y, x = np.mgrid[0:h, 0:w]
+    return x / max(w - 1, 1), y / max(h - 1, 1)
+
+
+def wedge(shape, lo_nm, hi_nm):
+    """Thickness rising linearly from left to right."""
+    x, _ = _grid(shape)
+    return lo_nm + (hi_nm - lo_nm) * x
+
+
+def dome(shape, base_nm, peak_nm):
+    """A smooth dome, thickest in the middle."""
+    x, y = _grid(shape)
+    r2 = ((x - 0.5) ** 2 + (y - 0.5) ** 2) / 0.5
+    return base_nm + (peak_nm - base_nm) * np.exp(-3 * r2)
+
+
+def steps(shape, levels_nm):
+    """Vertical bands of constant thickness with sharp edges (an etched step coupon)."""
+    x, _ = _grid(shape)
+    index = np.minimum((x * len(levels_nm)).astype(int), len(levels_nm) - 1)
+    return np.asarray(levels_nm, dtype=float)[index]
+
+
+def draining_soap_film(shape, black_nm=30.0, bottom_nm=1200.0, black_fraction=0.12, seed=0):
+    """A vertical soap film: a thin black film at the top, thickening downwards, with gentle swirls."""
+    x, y = _grid(shape)
+    rng = np.random.default_rng(seed)
+    phase = rng.uniform(0, 2 * np.pi, 3)
+    swirl = 0.04 * np.sin(6 * x + phase[0]) * np.sin(4 * y + phase[1]) + 0.02 * np.sin(11 * x + 3 * y + phase[2])
+    s = np.clip((y - black_fraction) / (1 - black_fraction) + swirl, 0, 1)
+    thickness = black_nm + (bottom_nm - black_nm) * s**1.6
+    return np.where(y < black_fraction + swirl * 0.5, black_nm, thickness)
+
+
+def edge_bead(shape, flat_nm=900.0, bead_nm=1400.0, width=0.08):
+    """A spin-coated layer, flat in the middle and thicker at the right-hand edge."""
+    x, _ = _grid(shape)
+    return flat_nm + (bead_nm - flat_nm) * np.exp(-((1 - x) / width) ** 2)
+
+
+def oil_lens(shape, rim_nm=50.0, centre_nm=700.0):
+    """An oil lens spreading on water: thick in the middle, thinning to the rim."""
+    x, y = _grid(shape)
+    r = np.sqrt((x - 0.5) ** 2 + (y - 0.5) ** 2) / 0.5
+    return rim_nm + (centre_nm - rim_nm) * np.clip(1 - r**2, 0, 1)
+
+
+@dataclasses.dataclass
+class CameraSettings:
+    """How the synthetic camera departs from an ideal colorimetric one.
+
+    Attributes
+    ----------
+    gains : (float, float, float)
+        White-balance error per channel (1 = none).
+    exposure : float
+        Overall exposure factor.
+    matrix : array_like, optional
+        A 3 × 3 colour matrix on linear RGB (a non-colorimetric camera).
+    noise : float
+        Standard deviation of additive noise on linear values.
+    jpeg_quality : int, optional
+        Compress as JPEG at this quality.
+    seed : int
+    """
+
+    gains: tuple = (1.0, 1.0, 1.0)
+    exposure: float = 1.0
+    matrix: np.ndarray | None = None
+    noise: float = 0.0
+    jpeg_quality: int | None = None
+    seed: int = 0
+
+
+def render_photo(stack, thickness_nm, camera=None, lookup=None):
+    """Encoded sRGB photo (H, W, 3) in 0–1 of a film with the given thickness field."""
+    camera = camera or CameraSettings()
+    t = np.asarray(thickness_nm, dtype=float)
+    lookup = lookup or build_lookup(stack, (0.0, float(np.ceil(t.max())) + 1.0), 0.25)
+    linear = np.stack([np.interp(t, lookup.thickness_nm, lookup.linear_rgb[:, i]) for i in range(3)], -1)
+    if camera.matrix is not None:
+        linear = linear @ np.asarray(camera.matrix).T
+    linear = linear * np.asarray(camera.gains) * camera.exposure
+    if camera.noise:
+        linear = linear + np.random.default_rng(camera.seed).normal(0, camera.noise, linear.shape)
+    encoded = srgb_encode(np.clip(linear, 0, 1))
+    if camera.jpeg_quality:
+        from PIL import Image
+
+        buffer = io.BytesIO()
+        Image.fromarray(np.rint(encoded * 255).astype(np.uint8)).save(buffer, format="JPEG",
+                                                                      quality=camera.jpeg_quality)
+        encoded = np.asarray(Image.open(buffer).convert("RGB"), dtype=float) / 255.0
+    else:
+        encoded = np.rint(encoded * 255) / 255.0  # 8-bit, like a saved photo
+    return encoded

@@ -1,0 +1,518 @@
+"""Photo of interference colours → calibrated thickness map with uncertainty.
+
+Public names
+------------
+ColourLookup, build_lookup
+    The film's predicted colour every ≤ 0.5 nm over the user's range, as the
+    camera records it (linear, then gains/matrix, clipped, encoded).
+CameraModel
+    The camera correction: a 3 × 3 matrix on linear RGB (its diagonal are the
+    per-channel gains; exposure is their common scale).
+thickness_map, ThicknessMap
+    The whole inversion: calibration, candidates across fringe orders, order
+    resolution, uncertainty, flags and statistics.
+FLAGS
+    Bit values of the per-pixel flags.
+
+Method
+------
+1. Every pixel's colour and every predicted colour are compared in CIELAB
+   (D65 white; the prediction is clipped to the sRGB cube and encoded first,
+   as a camera would). Candidates are the local minima of the colour
+   distance along the thickness path below a tolerance, one per fringe
+   order. Unique 8-bit colours are searched instead of pixels.
+2. Orders are resolved coarse to fine, as in quality-guided phase
+   unwrapping: on a downsampled copy (≤ 160 px a side) assignment grows from
+   the user's anchors or, without them, from the most confident pixels
+   (a single close candidate), always to the neighbour whose best candidate
+   is nearest in thickness. The result, upsampled, is the reference each
+   full-resolution pixel picks its nearest candidate against; a second pass
+   against a locally smoothed reference (σ = 3 px) cleans up. Values are
+   never smoothed, so steps stay sharp.
+3. Calibration: a reference region of known thickness (e.g. bare substrate at
+   0 nm) gives the per-channel gains; without one, the camera correction is
+   fitted jointly with the thickness assignment (alternating), a full 3 × 3
+   matrix when the photo's colours span enough of colour space, otherwise
+   gains only.
+4. Uncertainty (1σ): colour noise (robust spread of the residuals) divided
+   by the local slope of the colour path, |dLab/dd|.
+
+References
+----------
+Ghiglia, D. C. & Pritt, M. D. (1998). Two-Dimensional Phase Unwrapping:
+Theory, Algorithms, and Software, ch. 4 (quality-guided path following).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import heapq
+import time
+
+import numpy as np
+
+from .appearance import film_colours, fringe_order
+from .colour import XYZ_to_Lab, _adaptation_matrix, _xy_to_XYZ, _D65_XY, delta_E_2000, srgb_decode, srgb_encode
+from .errors import FilmcalcError
+
+__all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS",
+           "lab_of_encoded"]
+
+FLAGS = {"saturated": 1, "dark": 2, "no_match": 4, "ambiguous": 8, "unanchored": 16, "inconsistent": 32}
+
+_D65_XYZ = _xy_to_XYZ(_D65_XY) * 100
+_SRGB_TO_XYZ = None
+
+
+def _srgb_to_xyz_matrix():
+    global _SRGB_TO_XYZ
+    if _SRGB_TO_XYZ is None:
+        _SRGB_TO_XYZ = np.linalg.inv(_adaptation_matrix(_D65_XYZ))
+    return _SRGB_TO_XYZ
+
+
+def lab_of_linear(linear_rgb):
+    """CIELAB (D65 white) of linear sRGB values (..., 3)."""
+    return XYZ_to_Lab(100 * np.asarray(linear_rgb, dtype=float) @ _srgb_to_xyz_matrix().T, _D65_XYZ)
+
+
+def lab_of_encoded(encoded_rgb):
+    """CIELAB (D65 white) of encoded sRGB values (..., 3) in 0–1."""
+    return lab_of_linear(srgb_decode(encoded_rgb))
+
+
+@dataclasses.dataclass
+class CameraModel:
+    """Linear camera correction: camera linear RGB = matrix @ predicted linear sRGB."""
+
+    matrix: np.ndarray = dataclasses.field(default_factory=lambda: np.eye(3))
+
+    @property
+    def gains(self):
+        """Per-channel gains (the matrix diagonal)."""
+        return np.diag(self.matrix).copy()
+
+    def apply(self, linear_rgb):
+        return np.asarray(linear_rgb) @ self.matrix.T
+
+
+@dataclasses.dataclass
+class ColourLookup:
+    """Predicted film colours along the thickness path.
+
+    Attributes
+    ----------
+    thickness_nm : numpy.ndarray, shape (L,)
+    linear_rgb : numpy.ndarray, shape (L, 3)
+        Ideal linear sRGB (light's white → (1, 1, 1)), exposure 1, unclipped.
+    order : numpy.ndarray, shape (L,)
+        Fringe order at 550 nm of each thickness (1 = first).
+    period_nm : float
+        Thickness of one fringe order at 550 nm.
+    """
+
+    thickness_nm: np.ndarray
+    linear_rgb: np.ndarray
+    order: np.ndarray
+    period_nm: float
+
+    def encoded(self, camera):
+        """What the camera records: corrected, clipped to 0–1 and encoded."""
+        return srgb_encode(np.clip(camera.apply(self.linear_rgb), 0.0, 1.0))
+
+    def lab(self, camera):
+        return lab_of_encoded(self.encoded(camera))
+
+
+def build_lookup(stack, range_nm=(0.0, 1500.0), step_nm=0.5, angle_deg=None, observer="2"):
+    """The colour path of the stack's film, every ``step_nm`` over ``range_nm``."""
+    lo, hi = float(range_nm[0]), float(range_nm[1])
+    if not (0 <= lo < hi) or not (0 < step_nm <= 0.5):
+        raise FilmcalcError("The thickness range needs 0 ≤ min < max, and the lookup step must be ≤ 0.5 nm.")
+    thickness = np.arange(lo, hi + step_nm / 2, step_nm)
+    colours = film_colours(stack, thickness, None if angle_deg is None else [angle_deg], observer=observer)
+    linear = (colours.XYZ[0] / 100.0) @ _adaptation_matrix(colours.white_XYZ).T
+    orders = fringe_order(stack, np.append(thickness, 1.0), colours.angle_deg[0])
+    return ColourLookup(thickness, linear, np.floor(orders[:-1]).astype(int) + 1, float(1.0 / orders[-1]))
+
+
+@dataclasses.dataclass
+class ThicknessMap:
+    """Result of :func:`thickness_map` (arrays have the photo's shape)."""
+
+    thickness_nm: np.ndarray
+    sigma_nm: np.ndarray
+    residual_dE: np.ndarray
+    order: np.ndarray
+    flags: np.ndarray
+    camera: CameraModel
+    calibration: dict
+    statistics: dict
+    warnings: list
+    seconds: float
+
+    def flag_mask(self, name):
+        return (self.flags & FLAGS[name]) != 0
+
+
+def _candidates(lab_obs, lab_lut, tolerance, max_candidates):
+    """Local minima of the ΔE76 distance along the path, best first: indices (U, C) and distances."""
+    U, L = lab_obs.shape[0], lab_lut.shape[0]
+    idx = np.full((U, max_candidates), -1, dtype=np.int64)
+    dist = np.full((U, max_candidates), np.inf)
+    lut = lab_lut.astype(np.float32)
+    lut2 = np.sum(lut**2, axis=1)
+    chunk = max(1, (4 << 20) // L)
+    for a in range(0, U, chunk):
+        obs = lab_obs[a:a + chunk].astype(np.float32)
+        d2 = np.sum(obs**2, axis=1)[:, None] + lut2[None, :] - 2 * obs @ lut.T
+        d = np.sqrt(np.maximum(d2, 0))
+        interior = np.ones_like(d, dtype=bool)
+        interior[:, 1:] &= d[:, 1:] <= d[:, :-1]
+        interior[:, :-1] &= d[:, :-1] < d[:, 1:]
+        score = np.where(interior & (d <= tolerance), d, np.inf)
+        k = min(max_candidates, L)
+        part = np.argpartition(score, k - 1, axis=1)[:, :k]
+        pd = np.take_along_axis(score, part, axis=1)
+        order = np.argsort(pd, axis=1)
+        part, pd = np.take_along_axis(part, order, axis=1), np.take_along_axis(pd, order, axis=1)
+        idx[a:a + chunk, :k] = np.where(np.isfinite(pd), part, -1)
+        dist[a:a + chunk, :k] = pd
+    return idx, dist
+
+
+@dataclasses.dataclass
+class _Colours:
+    """A photo reduced to its unique 8-bit colours."""
+
+    shape: tuple
+    inverse: np.ndarray     # (H·W,) index of each pixel's colour in ``rgb``
+    rgb: np.ndarray         # (U, 3) encoded 0–1
+    lab: np.ndarray         # (U, 3)
+
+    @classmethod
+    def of(cls, encoded):
+        H, W, _ = encoded.shape
+        q = np.clip(np.rint(encoded.reshape(-1, 3) * 255), 0, 255).astype(np.int32)
+        codes = (q[:, 0] << 16) | (q[:, 1] << 8) | q[:, 2]
+        uniq, inverse = np.unique(codes, return_inverse=True)
+        rgb = np.stack([(uniq >> 16) & 255, (uniq >> 8) & 255, uniq & 255], axis=1) / 255.0
+        return cls((H, W), inverse.astype(np.int64), rgb, lab_of_encoded(rgb))
+
+    def per_pixel(self, values):
+        """Spread per-colour values (U, ...) to the image (H, W, ...)."""
+        return np.asarray(values)[self.inverse].reshape(self.shape + np.shape(values)[1:])
+
+
+def _pixel_candidates(colours, usable, lookup, camera, tolerance, max_candidates):
+    """Candidates per pixel: thickness (H, W, C) and ΔE76 (H, W, C), NaN / inf where none."""
+    idx, dist = _candidates(colours.lab, lookup.lab(camera), tolerance, max_candidates)
+    t = np.where(idx >= 0, lookup.thickness_nm[np.maximum(idx, 0)], np.nan).astype(np.float32)
+    cand_t = colours.per_pixel(t)
+    cand_d = colours.per_pixel(dist.astype(np.float32))
+    cand_t[~usable] = np.nan
+    cand_d[~usable] = np.inf
+    return cand_t, cand_d
+
+
+def _nearest_candidate(cand_t, cand_d, reference, colour_weight):
+    """Index of the candidate nearest a reference thickness (colour distance as a tie-break)."""
+    cost = np.abs(cand_t - reference[..., None]) + colour_weight * cand_d
+    cost = np.where(np.isfinite(cand_t), cost, np.inf)
+    return np.argmin(cost, axis=-1)
+
+
+def _grow(cand_t, cand_d, seeds, period_nm, valid):
+    """Quality-guided growth over a small grid; returns chosen thickness (NaN unreached) and region ids."""
+    H, W, C = cand_t.shape
+    ct = np.where(np.isfinite(cand_t), cand_t, np.nan).tolist()
+    cd = np.where(np.isfinite(cand_d), cand_d, 1e9).tolist()
+    ok = (valid & np.isfinite(cand_t[..., 0])).tolist()
+    chosen = [[None] * W for _ in range(H)]
+    region = np.full((H, W), -1, dtype=np.int64)
+    heap = []
+    for rid, (y, x, t) in enumerate(seeds):
+        if ok[y][x] and chosen[y][x] is None:
+            chosen[y][x] = t
+            region[y, x] = rid
+            heap.append((0.0, y, x))
+    heapq.heapify(heap)
+    next_region = len(seeds)
+    order = np.argsort(np.where(valid, cand_d[..., 0], np.inf), axis=None).tolist()
+    pos = 0
+    while True:
+        while heap:
+            _, y, x = heapq.heappop(heap)
+            t0 = chosen[y][x]
+            rid = region[y, x]
+            for yy, xx in ((y + 1, x), (y - 1, x), (y, x + 1), (y, x - 1)):
+                if 0 <= yy < H and 0 <= xx < W and ok[yy][xx] and chosen[yy][xx] is None:
+                    best, best_cost, best_jump, best_d = None, 1e18, 0.0, 0.0
+                    for t, d in zip(ct[yy][xx], cd[yy][xx]):
+                        if t == t:  # not NaN
+                            jump = abs(t - t0)
+                            cost = jump + 0.5 * d
+                            if cost < best_cost:
+                                best, best_cost, best_jump, best_d = t, cost, jump, d
+                    chosen[yy][xx] = best
+                    region[yy, xx] = rid
+                    heapq.heappush(heap, (best_jump / period_nm + 0.05 * best_d, yy, xx))
+        # Start a new region from the most confident unreached pixel.
+        while pos < len(order):
+            y, x = divmod(order[pos], W)
+            pos += 1
+            if ok[y][x] and chosen[y][x] is None:
+                chosen[y][x] = ct[y][x][0]
+                region[y, x] = next_region
+                next_region += 1
+                heap.append((0.0, y, x))
+                break
+        else:
+            break
+    out = np.array([[np.nan if v is None else v for v in row] for row in chosen], dtype=float)
+    return out, region
+
+
+def _blur_normalised(values, weights, sigma):
+    """Gaussian-weighted local mean of ``values`` where ``weights`` > 0 (normalised convolution)."""
+    from scipy.ndimage import gaussian_filter
+
+    w = np.where(np.isfinite(values), weights, 0.0)
+    num = gaussian_filter(np.where(w > 0, values, 0.0) * w, sigma, mode="nearest")
+    den = gaussian_filter(w, sigma, mode="nearest")
+    return np.divide(num, den, out=np.full(values.shape, np.nan), where=den > 1e-12)
+
+
+def _resolve(cand_t, cand_d, valid, anchors, period_nm, coarse_max=96):
+    """Order resolution, coarse to fine (see the module docstring)."""
+    from scipy.ndimage import zoom
+
+    H, W, C = cand_t.shape
+    step = max(1, int(np.ceil(max(H, W) / coarse_max)))
+    ct, cd, cv = cand_t[::step, ::step], cand_d[::step, ::step], valid[::step, ::step]
+    seeds = []
+    for x, y, t in anchors:
+        yy, xx = min(y // step, ct.shape[0] - 1), min(x // step, ct.shape[1] - 1)
+        if np.any(np.isfinite(ct[yy, xx])):
+            j = int(np.nanargmin(np.where(np.isfinite(ct[yy, xx]), np.abs(ct[yy, xx] - t), np.inf)))
+            seeds.append((yy, xx, ct[yy, xx, j]))
+    coarse, region = _grow(ct, cd, seeds, period_nm, cv)
+    # Fill unreached coarse cells so the upsampled reference is defined everywhere.
+    filled = np.where(np.isnan(coarse), _blur_normalised(coarse, np.ones_like(coarse), 2.0), coarse)
+    filled = np.where(np.isnan(filled), np.nanmean(coarse) if np.any(np.isfinite(coarse)) else 0.0, filled)
+    reference = zoom(filled, (H / filled.shape[0], W / filled.shape[1]), order=1, mode="nearest")[:H, :W]
+    pick = _nearest_candidate(cand_t, cand_d, reference, 1.0)
+    chosen = np.take_along_axis(cand_t, pick[..., None], axis=-1)[..., 0]
+    # Second pass against a locally smoothed reference (weights favour good colour matches).
+    best_d = np.take_along_axis(cand_d, pick[..., None], axis=-1)[..., 0]
+    local = _blur_normalised(chosen, 1.0 / (1.0 + best_d), 3.0)
+    local = np.where(np.isfinite(local), local, reference)
+    pick = _nearest_candidate(cand_t, cand_d, local, 1.0)
+    chosen = np.take_along_axis(cand_t, pick[..., None], axis=-1)[..., 0]
+    region_full = np.repeat(np.repeat(region, step, axis=0), step, axis=1)[:H, :W]
+    return chosen, pick, local, region_full, len(seeds)
+
+
+def _fit_camera(pred_linear, obs_linear, full_matrix):
+    """Least-squares camera correction obs ≈ M @ pred (full 3 × 3 or diagonal gains)."""
+    if full_matrix:
+        M, *_ = np.linalg.lstsq(pred_linear, obs_linear, rcond=None)
+        return M.T
+    g = np.sum(pred_linear * obs_linear, axis=0) / np.maximum(np.sum(pred_linear**2, axis=0), 1e-12)
+    return np.diag(g)
+
+
+def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), reference=None,
+                  self_calibrate=True, full_matrix=None, tolerance=12.0, max_candidates=8, step_nm=0.5,
+                  pixel_size_um=None, angle_deg=None, progress=None, lookup=None):
+    """Turn a photo of interference colours into a thickness map.
+
+    Parameters
+    ----------
+    encoded_rgb : numpy.ndarray, shape (H, W, 3)
+        The photo as encoded sRGB in 0–1 (see :func:`filmcalc.io.load_photo`).
+    stack : filmcalc.stack.Stack
+    range_nm : (float, float)
+        Thicknesses to consider, nm.
+    anchors : sequence of (x, y, thickness_nm)
+        Pixels of known thickness (x = column, y = row from the top-left).
+    reference : (x0, y0, x1, y1, thickness_nm), optional
+        A rectangle (inclusive corners) of known thickness for the camera gains.
+    self_calibrate : bool
+        Without a reference, fit the camera correction jointly with the map.
+    full_matrix : bool, optional
+        Fit a full 3 × 3 correction (default: when the photo's colours allow).
+    tolerance : float
+        Largest colour distance (ΔE76) for a candidate.
+    pixel_size_um : float, optional
+        For areas in the statistics.
+    progress : callable(fraction, message), optional
+
+    Returns
+    -------
+    ThicknessMap
+    """
+    t_start = time.perf_counter()
+    report = progress or (lambda fraction, message: None)
+    rgb = np.asarray(encoded_rgb, dtype=np.float32)
+    if rgb.ndim != 3 or rgb.shape[2] != 3:
+        raise FilmcalcError("The photo must be an RGB image.")
+    H, W, _ = rgb.shape
+    if np.ptp(rgb, axis=-1).max() <= 2 / 255:
+        raise FilmcalcError("This photo is greyscale: colour cannot tell thickness here. Use the monochromatic "
+                            "fringe analysis for photos taken under line light or through a band-pass filter.")
+    anchors = [(int(x), int(y), float(t)) for x, y, t in anchors]
+    for x, y, t in anchors:
+        if not (0 <= x < W and 0 <= y < H):
+            raise FilmcalcError(f"Anchor ({x}, {y}) lies outside the {W} × {H} photo.")
+        if not range_nm[0] <= t <= range_nm[1]:
+            raise FilmcalcError(f"Anchor thickness {t} nm lies outside the range {range_nm[0]}–{range_nm[1]} nm.")
+    report(0.05, "predicting the film's colours")
+    lookup = lookup or build_lookup(stack, range_nm, step_nm, angle_deg)
+    period = lookup.period_nm
+    colours = _Colours.of(rgb)
+    saturated = colours.per_pixel(np.any(colours.rgb >= 0.995, axis=-1))
+    dark = colours.per_pixel(colours.lab[:, 0] < 3.0)
+    valid = ~(saturated | dark)
+    if not valid.any():
+        raise FilmcalcError("Every pixel is saturated or nearly black: check the exposure of the photo.")
+    camera, calibration = _initial_camera(rgb, valid, lookup, reference, self_calibrate)
+    shift_dE = 0.0
+    if self_calibrate and reference is None:
+        # Fit the camera on a subsample (≤ 250 000 pixels), alternating with the map.
+        stride = max(1, int(np.ceil(np.sqrt(H * W / 250_000))))
+        small = np.ascontiguousarray(rgb[::stride, ::stride])
+        small_colours, small_valid = _Colours.of(small), valid[::stride, ::stride]
+        small_anchors = [(x // stride, y // stride, t) for x, y, t in anchors]
+        for k in range(3):
+            report(0.1 + 0.2 * k, f"calibrating the camera (pass {k + 1} of 3)")
+            ct, cd = _pixel_candidates(small_colours, small_valid, lookup, camera, tolerance, max_candidates)
+            has = np.isfinite(ct[..., 0])
+            if not has.any():
+                break
+            chosen = _resolve(ct, cd, has, small_anchors, period)[0]
+            camera, shift, fitted = _refit_camera(camera, chosen, has, srgb_decode(small), lookup, full_matrix)
+            shift_dE += shift
+            calibration.update(fitted)
+    report(0.7, "matching colours")
+    cand_t, cand_d = _pixel_candidates(colours, valid, lookup, camera, tolerance, max_candidates)
+    has = np.isfinite(cand_t[..., 0])
+    if not has.any():
+        raise FilmcalcError(f"No pixel matches any colour of this stack between {range_nm[0]:g} and "
+                            f"{range_nm[1]:g} nm: check the stack, the light, the exposure and the range.")
+    report(0.8, "resolving fringe orders")
+    chosen, pick, local, region, n_seeds = _resolve(cand_t, cand_d, has, anchors, period)
+    report(0.9, "uncertainty and flags")
+    best_d = np.take_along_axis(cand_d, pick[..., None], axis=-1)[..., 0]
+    ok = has & np.isfinite(chosen)
+    thickness = np.where(ok, chosen, np.nan)
+    # Uncertainty: colour noise over the local slope of the colour path.
+    lab_lut = lookup.lab(camera)
+    slope = np.linalg.norm(np.gradient(lab_lut, lookup.thickness_nm, axis=0), axis=1)  # ΔE per nm
+    noise = float(1.4826 * np.median(best_d[ok]))
+    lut_index = np.clip(np.rint((np.nan_to_num(thickness) - lookup.thickness_nm[0]) /
+                                (lookup.thickness_nm[1] - lookup.thickness_nm[0])), 0,
+                        lookup.thickness_nm.size - 1).astype(np.int64)
+    sigma = np.where(ok, np.maximum(noise, best_d) / np.maximum(slope[lut_index], 1e-3), np.nan)
+    sigma = np.minimum(sigma, period / 2)
+    # Colour residual ΔE00, computed once per (colour, thickness) pair.
+    pairs = colours.inverse * lookup.thickness_nm.size + lut_index.ravel()
+    upairs, pair_inverse = np.unique(pairs, return_inverse=True)
+    res = delta_E_2000(colours.lab[upairs // lookup.thickness_nm.size], lab_lut[upairs % lookup.thickness_nm.size])
+    residual = np.where(ok, res[pair_inverse].reshape(H, W), np.nan)
+    second = np.where(pick == 0, cand_d[..., 1], cand_d[..., 0])
+    other_t = np.where(pick == 0, cand_t[..., 1], cand_t[..., 0])
+    flags = np.zeros((H, W), dtype=np.uint8)
+    flags[saturated] |= FLAGS["saturated"]
+    flags[dark] |= FLAGS["dark"]
+    flags[valid & ~has] |= FLAGS["no_match"]
+    ambiguous = ok & np.isfinite(second) & (second < best_d + 1.0) & (np.abs(other_t - thickness) > period / 3) & \
+        (np.abs(thickness - local) > period / 4)
+    flags[ambiguous] |= FLAGS["ambiguous"]
+    flags[ok & (np.abs(thickness - local) > period / 3)] |= FLAGS["inconsistent"]
+    if anchors:
+        anchored_regions = {int(region[y, x]) for x, y, _ in anchors}
+        flags[ok & ~np.isin(region, list(anchored_regions))] |= FLAGS["unanchored"]
+    order = np.where(ok, lookup.order[lut_index], 0).astype(np.int16)
+    stats = _statistics(thickness, flags, pixel_size_um)
+    calibration.update({"matrix": camera.matrix.round(5).tolist(), "gains": camera.gains.round(5).tolist(),
+                        "colour_shift_dE00": round(shift_dE, 3), "colour_noise_dE76": round(noise, 3),
+                        "unique_colours": int(colours.rgb.shape[0]), "seeds": n_seeds})
+    warnings = []
+    if stats["flagged_fraction"] > 0.2:
+        warnings.append(f"{100 * stats['flagged_fraction']:.0f} % of pixels are flagged: check the stack, light, "
+                        "range and exposure, or add an anchor.")
+    report(1.0, "done")
+    return ThicknessMap(thickness.astype(np.float32), sigma.astype(np.float32), residual.astype(np.float32),
+                        order, flags, camera, calibration, stats, warnings, time.perf_counter() - t_start)
+
+
+def _initial_camera(rgb, valid, lookup, reference, self_calibrate):
+    """Gains from a reference region, an exposure guess for self-calibration, or the identity."""
+    H, W, _ = rgb.shape
+    if reference is not None:
+        x0, y0, x1, y1, t_ref = reference
+        if not (0 <= x0 <= x1 < W and 0 <= y0 <= y1 < H):
+            raise FilmcalcError(f"Reference rectangle ({x0},{y0})–({x1},{y1}) lies outside the {W} × {H} photo.")
+        patch = srgb_decode(rgb[y0:y1 + 1, x0:x1 + 1]).reshape(-1, 3)
+        expected = np.array([np.interp(t_ref, lookup.thickness_nm, lookup.linear_rgb[:, i]) for i in range(3)])
+        if np.any(expected <= 1e-6):
+            raise FilmcalcError("The reference thickness predicts a black channel; choose another reference.")
+        if np.any(patch >= 0.995):
+            raise FilmcalcError("The reference region is saturated; use a less exposed photo or another region.")
+        gains = patch.mean(axis=0) / expected
+        return CameraModel(np.diag(gains)), {"method": "reference region", "reference": list(reference)}
+    if not self_calibrate:
+        return CameraModel(), {"method": "none (camera taken as ideal)"}
+    # Exposure guess: match the bright end of the photo to the bright end of the colour path.
+    lin = srgb_decode(rgb[valid])
+    observed = np.percentile(lin.mean(axis=1), 95)
+    predicted = np.percentile(lookup.linear_rgb.mean(axis=1), 95)
+    k = float(observed / predicted) if predicted > 0 else 1.0
+    return CameraModel(np.eye(3) * k), {"method": "self-calibration", "initial_exposure": round(k, 4)}
+
+
+def _refit_camera(camera, chosen, has, linear, lookup, full_matrix):
+    """One calibration step: fit the camera to the current assignment, keep it if it explains the photo better."""
+    good = has & np.isfinite(chosen)
+    sel = np.flatnonzero(good.ravel())
+    if sel.size < 50:
+        return camera, 0.0, {}
+    if sel.size > 20000:
+        sel = np.random.default_rng(0).choice(sel, 20000, replace=False)
+    t = chosen.ravel()[sel]
+    pred = np.stack([np.interp(t, lookup.thickness_nm, lookup.linear_rgb[:, i]) for i in range(3)], -1)
+    obs = linear.reshape(-1, 3)[sel]
+    distinct = np.unique(np.rint(t / 2)).size  # distinct thicknesses at 2 nm
+    spread = np.linalg.svd(pred - pred.mean(0), compute_uv=False)
+    rich = distinct >= 100 and spread[-1] > 0.02 * spread[0]
+    use_full = rich if full_matrix is None else (full_matrix and rich)
+    gains = _fit_camera(pred, obs, False)
+    if use_full:
+        # Ridge towards the gains: a full matrix only moves as far as the data demand.
+        lam = 0.05 * np.trace(pred.T @ pred) / 3
+        new = np.linalg.solve(pred.T @ pred + lam * np.eye(3), pred.T @ obs + lam * gains.T).T
+    else:
+        new = gains
+    before = np.median(np.linalg.norm(lab_of_linear(np.clip(camera.apply(pred), 0, 1)) - lab_of_linear(obs), axis=1))
+    after = np.median(np.linalg.norm(lab_of_linear(np.clip(pred @ new.T, 0, 1)) - lab_of_linear(obs), axis=1))
+    if not after < before:
+        return camera, 0.0, {"full_matrix": False}
+    shift = float(np.median(delta_E_2000(lab_of_linear(np.clip(camera.apply(pred), 0, 1)),
+                                         lab_of_linear(np.clip(pred @ new.T, 0, 1)))))
+    return CameraModel(new), shift, {"full_matrix": bool(use_full)}
+
+
+def _statistics(thickness, flags, pixel_size_um):
+    good = np.isfinite(thickness) & (flags == 0)
+    t = thickness[good]
+    stats = {"pixels": int(thickness.size), "good_pixels": int(good.sum()),
+             "flagged_fraction": float(1 - good.mean()) if thickness.size else 1.0}
+    if t.size:
+        p = np.percentile(t, [5, 25, 50, 75, 95])
+        stats.update({"mean_nm": float(t.mean()), "std_nm": float(t.std()), "min_nm": float(t.min()),
+                      "max_nm": float(t.max()), "p5_nm": p[0], "p25_nm": p[1], "median_nm": p[2], "p75_nm": p[3],
+                      "p95_nm": p[4]})
+    if pixel_size_um:
+        stats["good_area_um2"] = float(good.sum() * pixel_size_um**2)
+    return {k: (round(v, 3) if isinstance(v, float) else v) for k, v in stats.items()}
