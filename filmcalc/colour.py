@@ -53,13 +53,14 @@ from pathlib import Path
 import numpy as np
 
 from .errors import FilmcalcError
+from .materials import AirIndex
 
 with warnings.catch_warnings():  # colour-science warns when matplotlib is absent
     warnings.simplefilter("ignore")
     import colour as _cs
 
 __all__ = ["ColourKernel", "colour_kernel", "light_spectrum", "reflectance_to_XYZ", "XYZ_to_srgb", "srgb_to_XYZ",
-           "srgb_encode", "srgb_decode", "srgb_to_hex", "srgb_to_hex_array", "XYZ_to_xy", "XYZ_to_uv", "XYZ_to_Lab", "Lab_to_XYZ",
+           "srgb_encode", "srgb_decode", "line_colour_srgb", "srgb_to_hex", "srgb_to_hex_array", "XYZ_to_xy", "XYZ_to_uv", "XYZ_to_Lab", "Lab_to_XYZ",
            "XYZ_to_Oklab", "delta_E_2000", "parse_colour", "CameraResponse", "load_camera_csv",
            "camera_kernel", "spectral_locus", "hue_family", "HUE_ANCHORS", "OBSERVERS", "DEFAULT_WAVELENGTHS_NM", "LINE_SOURCES"]
 
@@ -95,16 +96,20 @@ def _illuminant_name(source):
     return None
 
 
-# Named line sources: air wavelengths in nm (NIST Atomic Spectra Database;
-# equal power is assumed for the lines of a set).
-LINE_SOURCES = {
-    "sodium": "line:588.995,589.592",   # Na D₂, D₁
-    "mercury": "line:404.656,435.834,546.074",  # Hg h, g, e lines
-    "mercury-green": "line:546.074",
-    "helium-d": "line:587.562",
-    "hene": "line:632.8",                # He–Ne laser
-    "hene-green": "line:543.5",
+# Named line sources, listed as spectroscopists do in air wavelengths (nm; NIST
+# Atomic Spectra Database); converted below to the vacuum wavelengths the optics
+# uses, with the Ciddor 1996 index of standard air. Equal power per line.
+_LINES_IN_AIR = {
+    "sodium": (588.995, 589.592),          # Na D₂, D₁
+    "mercury": (404.656, 435.834, 546.074),  # Hg h, g, e
+    "mercury-green": (546.074,),
+    "helium-d": (587.562,),
+    "hene": (632.8,),                      # He–Ne laser
+    "hene-green": (543.5,),
 }
+_AIR = AirIndex()
+LINE_SOURCES = {name: "line:" + ",".join(f"{w * _AIR.index(w).real:.4f}" for w in lines)
+                for name, lines in _LINES_IN_AIR.items()}
 
 
 def _parse_lines(source):
@@ -146,7 +151,7 @@ def light_spectrum(source, wavelength_nm, base_dir=None):
     if name is not None:
         sd = _cs.SDS_ILLUMINANTS[name]
         lo, hi = sd.wavelengths[0], sd.wavelengths[-1]
-        if wl.min() < lo or wl.max() > hi:
+        if wl.min() < lo - 1e-6 or wl.max() > hi + 1e-6:
             raise FilmcalcError(f"Light {source!r} is tabulated for {lo:g}–{hi:g} nm only.")
         return np.interp(wl, sd.wavelengths, sd.values)
     if source.lower().endswith(".csv"):
@@ -279,6 +284,22 @@ def srgb_encode(linear):
     return np.where(L <= 0.0031308, 12.92 * L, 1.055 * np.abs(L) ** (1 / 2.4) * np.sign(L) - 0.055)
 
 
+def line_colour_srgb(XYZ, white_XYZ):
+    """Display colour under line light: the line's own hue, scaled by luminance.
+
+    A single line's white cannot be adapted to D65 (one cone sees nothing),
+    so the film is shown as shades of the line's sRGB colour (the most
+    saturated displayable one, brightest channel 1), scaled by Y / Y_white.
+    """
+    line = (np.asarray(white_XYZ, dtype=float) / white_XYZ[1]) @ _XYZ_TO_SRGB.T
+    line = np.clip(line, 0, None)
+    line = line / line.max()
+    Y = np.asarray(XYZ, dtype=float)[..., 1:2] / white_XYZ[1]
+    linear = Y * line
+    out = np.any(linear > 1 + 1e-3, axis=-1)
+    return srgb_encode(np.clip(linear, 0.0, 1.0)), out
+
+
 def XYZ_to_srgb(XYZ, white_XYZ):
     """Encoded sRGB for display, with the light's white mapped to sRGB white.
 
@@ -367,12 +388,14 @@ _EPS, _KAPPA = 216 / 24389, 24389 / 27  # CIE 015:2018 eq. 8.4 constants
 def XYZ_to_Lab(XYZ, white_XYZ):
     """CIELAB (L*, a*, b*) relative to the reference white (CIE 015:2018 §8.2.1).
 
-    A white with a zero component (a single red line has Z = 0) leaves that
-    channel at zero: CIELAB then only tells lightness and one opponent axis.
+    A white with a zero component (a single red line has Z = 0) gives that
+    channel no opponent signal (it follows Y): under line light CIELAB then
+    tells lightness and at most one opponent axis.
     """
     XYZ = np.asarray(XYZ, dtype=float)
     white = np.broadcast_to(np.asarray(white_XYZ, dtype=float), XYZ.shape)
     t = np.divide(XYZ, white, out=np.zeros(XYZ.shape), where=white > 0)
+    t = np.where(white > 0, t, t[..., 1:2])  # a missing channel follows Y: no opponent signal from it
     f = np.where(t > _EPS, np.cbrt(t), (_KAPPA * t + 16) / 116)
     return np.stack([116 * f[..., 1] - 16, 500 * (f[..., 0] - f[..., 1]), 200 * (f[..., 1] - f[..., 2])], axis=-1)
 
@@ -535,8 +558,11 @@ def _anchor_hues():
     return names, np.degrees(np.arctan2(labs[:, 2], labs[:, 1])) % 360
 
 
+GREY_CHROMA = 4.0  # C*ab below which a colour is called grey (common practice, no source)
+
+
 def hue_family(Lab):
-    """Coarse hue name(s) of CIELAB colours: the family whose anchor hue is nearest.
+    """Coarse hue name(s) of CIELAB colours: the family whose anchor hue is nearest, or grey.
 
     Parameters
     ----------
@@ -544,10 +570,12 @@ def hue_family(Lab):
 
     Returns
     -------
-    numpy.ndarray of str, shape (...)
+    str or numpy.ndarray of str, shape (...)
     """
     Lab = np.asarray(Lab, dtype=float)
     names, anchors = _anchor_hues()
     h = np.degrees(np.arctan2(Lab[..., 2], Lab[..., 1])) % 360
     gap = np.abs((h[..., None] - anchors + 180) % 360 - 180)
-    return np.array(names)[np.argmin(gap, axis=-1)]
+    family = np.array(names)[np.argmin(gap, axis=-1)]
+    named = np.where(np.hypot(Lab[..., 1], Lab[..., 2]) < GREY_CHROMA, "grey", family)
+    return str(named) if named.ndim == 0 else named

@@ -224,7 +224,10 @@ def _combine_incoherent(groups, attenuation):
     R, T = groups[-1][0], groups[-1][1]
     for (Ra, Ta, Rab, Tab), P in zip(groups[-2::-1], attenuation[::-1]):
         den = 1 - Rab * R * P * P
-        R, T = Ra + Ta * Tab * R * P * P / den, Ta * T * P / den
+        # den = 0 only between two totally reflecting boundaries around a lossless
+        # thick layer; then Tab = 0 and no light enters it: the terms vanish.
+        safe = np.where(den > 0, den, 1.0)
+        R, T = Ra + np.where(den > 0, Ta * Tab * R * P * P / safe, 0.0), np.where(den > 0, Ta * T * P / safe, 0.0)
     return R, T
 
 

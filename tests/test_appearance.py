@@ -113,13 +113,13 @@ def test_monochromatic_dark_bands():
 # the colour chart usually attributed to Pliskin & Conrad 1964 (IBM J. Res. Dev.
 # 8, 43; from memory) as reproduced by university fabrication labs. Entries of
 # the first two orders (to 460 nm). Each named colour is mapped to the hue
-# families its words describe (tan/brown: the orange-red-yellow side; "metallic"
-# is near-neutral and accepts the families either side).
+# families its words describe (tan/brown: the orange-red-yellow side or grey;
+# "metallic" is near-neutral and accepts grey and the families either side).
 OXIDE_CHART = [
-    (50, "tan", {"orange", "yellow", "red"}), (70, "brown", {"orange", "red", "yellow"}),
+    (50, "tan", {"orange", "yellow", "red", "grey"}), (70, "brown", {"orange", "red", "yellow", "grey"}),
     (100, "dark violet to red-violet", {"violet", "magenta", "blue"}), (120, "royal blue", {"blue", "violet"}),
     (150, "light blue to metallic blue", {"blue", "cyan"}),
-    (170, "metallic to very light yellow-green", {"green", "yellow", "cyan"}),
+    (170, "metallic to very light yellow-green", {"green", "yellow", "cyan", "grey"}),
     (200, "light gold or yellow", {"yellow", "orange"}), (220, "gold with slight yellow-orange", {"yellow", "orange"}),
     (250, "orange to melon", {"orange", "red"}), (270, "red-violet", {"magenta", "violet", "red"}),
     (300, "blue to violet-blue", {"blue", "violet"}), (310, "blue", {"blue"}),
@@ -199,3 +199,24 @@ def test_exposure_rescales_consistently():
     auto = one.auto_exposure(target_Y=90.0)
     # Water film: peak reflectance 4R/(1+R)² ≈ 7.8 % (Born & Wolf §7.6.1), so about 11.5×.
     assert 90.0 / auto == pytest.approx(one.Y_reflectance.max()) and 10 < auto < 14
+
+
+def test_thick_film_colours_use_a_fine_enough_wavelength_grid():
+    # Fringes λ²/(2nd) apart in wavelength are about 5 nm at 15 µm: the default
+    # grid must follow them (reference: a 0.1 nm grid).
+    stack = OXIDE.with_light(source="D65")
+    for d in (5000.0, 15000.0):
+        coarse = film_colours(stack, [d])
+        fine = film_colours(stack, [d], wavelength_nm=np.arange(380.0, 780.0 + 1e-9, 0.1))
+        assert delta_E_2000(coarse.Lab[0, 0], fine.Lab[0, 0]) < 0.05
+
+
+def test_cone_average_of_a_thick_film():
+    d, angle, na = 8000.0, 30.0, 0.3
+    c = film_colours(OXIDE, [d], [angle], numerical_aperture=na)
+    nodes, w = cone_angles(angle, na, built_in_material("air").index(500.0).real, rings=24, spokes=48)
+    k = colour_kernel("F2", wavelength_nm=np.arange(380.0, 780.0 + 1e-9, 1.0))
+    R = sum(wi * stack_reflectance(OXIDE, k.wavelength_nm, d, angle_deg=a, numerical_aperture=0).R
+            for a, wi in zip(nodes, w))
+    direct = XYZ_to_Lab(reflectance_to_XYZ(R, k), k.white_XYZ)
+    assert delta_E_2000(direct, c.Lab[0, 0]) < 0.1

@@ -150,7 +150,8 @@ def test_hue_families_from_css_anchors():
 
 def test_light_names():
     assert np.allclose(colour_kernel("F2").weights, colour_kernel("FL2").weights)  # CIE name vs colour-science's
-    assert colour_kernel("sodium").wavelength_nm.tolist() == [588.995, 589.592]
+    # Na D lines, 588.995 and 589.592 nm in air (NIST ASD), in vacuum ×n_air ≈ 1.000277 (Ciddor 1996).
+    assert colour_kernel("sodium").wavelength_nm == pytest.approx([589.158, 589.755], abs=2e-3)
     assert colour_kernel("mercury").wavelength_nm.size == 3
     assert colour_kernel("D65", "10").white_xy == pytest.approx([0.31382, 0.33100], abs=2e-4)  # CIE 015 Table 11.3 (from memory)
 
@@ -165,3 +166,20 @@ def test_camera_with_cie_sensitivities_is_von_kries_xyz():
     R = 0.3 + 0.2 * np.cos(k.wavelength_nm / 30)
     assert reflectance_to_XYZ(R, ck) == pytest.approx(100 * reflectance_to_XYZ(R, k) / k.white_XYZ, rel=1e-9)
     assert reflectance_to_XYZ(np.ones(k.wavelength_nm.size), ck) == pytest.approx([100, 100, 100])
+
+
+def test_line_light_colours_and_lab():
+    from filmcalc.colour import line_colour_srgb
+    k = colour_kernel("line:650")
+    # CIELAB of the line's own white is (100, 0, 0) even though its Z is 0.
+    assert XYZ_to_Lab(k.white_XYZ, k.white_XYZ) == pytest.approx([100, 0, 0], abs=1e-9)
+    half = reflectance_to_XYZ(np.array([0.5]), k)
+    srgb, _ = line_colour_srgb(np.stack([k.white_XYZ, half]), k.white_XYZ)
+    assert srgb[0, 0] == pytest.approx(1.0) and srgb[0, 0] > srgb[0, 1]  # red line shows red
+    assert srgb[1] == pytest.approx(srgb_encode(0.5 * srgb_decode_for_test(srgb[0])), abs=1e-9)
+    assert hue_family([50.0, 1.0, 1.0]) == "grey"
+
+
+def srgb_decode_for_test(v):
+    from filmcalc.colour import srgb_decode
+    return srgb_decode(v)

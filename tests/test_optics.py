@@ -407,3 +407,13 @@ def test_bare_silicon_reflectance():
     # N ≈ 3.88 too, so the same R within the sources' spread.
     stack = loads_stack('[ambient]\nmaterial = {n = 1.0}\n[substrate]\nmaterial = "silicon"\n')
     assert stack_reflectance(stack, [632.8]).R[0] == pytest.approx(0.3485, abs=2e-3)
+
+
+def test_thick_layer_between_total_reflections_is_finite():
+    # A lossless thick layer between two totally reflecting boundaries (n = 1.5
+    # ambient, 45°): no light enters it, so R = 1 and T = 0, not 0/0.
+    n = [1.5, 1.0, 2.0, 1.5, 1.0]
+    for pol in "sp":
+        R, T = stack_rt(n, [1e6, 300.0, 1e6], [False, True, False], 550.0, 45.0, pol)
+        assert np.isfinite(R) and np.isfinite(T)
+        assert R == pytest.approx(1.0, abs=1e-9) and T == pytest.approx(0.0, abs=1e-9)
