@@ -222,13 +222,33 @@ def _nearest_candidate(cand_t, cand_d, reference, colour_weight):
     return np.argmin(cost, axis=-1)
 
 
-def _grow(cand_t, cand_d, seeds, period_nm, valid):
-    """Quality-guided growth over a small grid; returns chosen thickness (NaN unreached) and region ids."""
+EDGE_DE = 12.0  # colour change between neighbours (ΔE76) taken as an edge of the film (a step)
+
+
+def _grow(cand_t, cand_d, seeds, period_nm, valid, lab):
+    """Quality-guided growth over a small grid; returns chosen thickness (NaN unreached) and region ids.
+
+    Across a smooth film the next pixel takes the candidate nearest the
+    thickness predicted from its neighbour (continuing the local slope).
+    Across an edge (a colour change above ``EDGE_DE``, e.g. an etched step)
+    continuity says little, so the colour decides: the best-matching
+    candidates (within 2 ΔE of the best) compete on continuity only.
+    """
     H, W, C = cand_t.shape
+    edge = np.zeros((H, W, 4), dtype=bool)
+    dy = np.linalg.norm(np.diff(lab, axis=0), axis=-1)
+    dx = np.linalg.norm(np.diff(lab, axis=1), axis=-1)
+    # An edge stands out from the photo's usual neighbour-to-neighbour change (noise, smooth slopes).
+    typical = np.median(np.concatenate([dy.ravel(), dx.ravel()])) if dy.size + dx.size else 0.0
+    threshold = max(EDGE_DE, 4 * typical)
+    edge[:-1, :, 0] = edge[1:, :, 1] = dy > threshold      # (y+1, x) and (y-1, x)
+    edge[:, :-1, 2] = edge[:, 1:, 3] = dx > threshold      # (y, x+1) and (y, x-1)
+    edge = edge.tolist()
     ct = np.where(np.isfinite(cand_t), cand_t, np.nan).tolist()
     cd = np.where(np.isfinite(cand_d), cand_d, 1e9).tolist()
     ok = (valid & np.isfinite(cand_t[..., 0])).tolist()
     chosen = [[None] * W for _ in range(H)]
+    parent = [[None] * W for _ in range(H)]  # the neighbour a pixel was reached from
     region = np.full((H, W), -1, dtype=np.int64)
     heap = []
     for rid, (y, x, t) in enumerate(seeds):
@@ -238,25 +258,38 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid):
             heap.append((0.0, y, x))
     heapq.heapify(heap)
     next_region = len(seeds)
-    order = np.argsort(np.where(valid, cand_d[..., 0], np.inf), axis=None).tolist()
+    # New regions start where the colour is least ambiguous: the largest gap
+    # between the best and the second-best candidate (a unique match first).
+    with np.errstate(invalid="ignore"):
+        margin = np.where(np.isfinite(cand_d[..., 1]), cand_d[..., 1] - cand_d[..., 0], 1e6) - 1e-3 * cand_d[..., 0]
+    order = np.argsort(np.where(valid & np.isfinite(cand_d[..., 0]), -margin, np.inf), axis=None).tolist()
     pos = 0
     while True:
         while heap:
             _, y, x = heapq.heappop(heap)
             t0 = chosen[y][x]
             rid = region[y, x]
-            for yy, xx in ((y + 1, x), (y - 1, x), (y, x + 1), (y, x - 1)):
+            for k, (yy, xx) in enumerate(((y + 1, x), (y - 1, x), (y, x + 1), (y, x - 1))):
                 if 0 <= yy < H and 0 <= xx < W and ok[yy][xx] and chosen[yy][xx] is None:
+                    across_edge = edge[y][x][k]
+                    floor = min(cd[yy][xx]) + 2.0 if across_edge else 1e18
+                    # Predict by continuing the local slope (from the parent through this pixel),
+                    # which keeps steep but smooth films on the right branch of the colour path.
+                    p = parent[y][x]
+                    predicted = t0 if p is None or (p[0] - y, p[1] - x) != (y - yy, x - xx) else \
+                        2 * t0 - chosen[p[0]][p[1]]
                     best, best_cost, best_jump, best_d = None, 1e18, 0.0, 0.0
                     for t, d in zip(ct[yy][xx], cd[yy][xx]):
-                        if t == t:  # not NaN
-                            jump = abs(t - t0)
+                        if t == t and d <= floor:  # not NaN, and a good enough match at an edge
+                            jump = min(abs(t - predicted), abs(t - t0))
                             cost = jump + 0.5 * d
                             if cost < best_cost:
                                 best, best_cost, best_jump, best_d = t, cost, jump, d
                     chosen[yy][xx] = best
+                    parent[yy][xx] = (y, x)
                     region[yy, xx] = rid
-                    heapq.heappush(heap, (best_jump / period_nm + 0.05 * best_d, yy, xx))
+                    quality = 0.05 * best_d + (0.5 if across_edge else best_jump / period_nm)
+                    heapq.heappush(heap, (quality, yy, xx))
         # Start a new region from the most confident unreached pixel.
         while pos < len(order):
             y, x = divmod(order[pos], W)
@@ -283,7 +316,7 @@ def _blur_normalised(values, weights, sigma):
     return np.divide(num, den, out=np.full(values.shape, np.nan), where=den > 1e-12)
 
 
-def _resolve(cand_t, cand_d, valid, anchors, period_nm, coarse_max=96):
+def _resolve(cand_t, cand_d, valid, anchors, period_nm, lab, coarse_max=96):
     """Order resolution, coarse to fine (see the module docstring)."""
     from scipy.ndimage import zoom
 
@@ -296,7 +329,11 @@ def _resolve(cand_t, cand_d, valid, anchors, period_nm, coarse_max=96):
         if np.any(np.isfinite(ct[yy, xx])):
             j = int(np.nanargmin(np.where(np.isfinite(ct[yy, xx]), np.abs(ct[yy, xx] - t), np.inf)))
             seeds.append((yy, xx, ct[yy, xx, j]))
-    coarse, region = _grow(ct, cd, seeds, period_nm, cv)
+    # Edges are judged on block means (noise averages out), candidates on the sampled pixels.
+    hb, wb = ct.shape[:2]
+    pad = np.pad(lab, ((0, hb * step - H), (0, wb * step - W), (0, 0)), mode="edge")
+    lab_blocks = pad.reshape(hb, step, wb, step, 3).mean(axis=(1, 3))
+    coarse, region = _grow(ct, cd, seeds, period_nm, cv, lab_blocks)
     # Fill unreached coarse cells so the upsampled reference is defined everywhere.
     filled = np.where(np.isnan(coarse), _blur_normalised(coarse, np.ones_like(coarse), 2.0), coarse)
     filled = np.where(np.isnan(filled), np.nanmean(coarse) if np.any(np.isfinite(coarse)) else 0.0, filled)
@@ -323,7 +360,7 @@ def _fit_camera(pred_linear, obs_linear, full_matrix):
 
 
 def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), reference=None,
-                  self_calibrate=True, full_matrix=None, tolerance=12.0, max_candidates=8, step_nm=0.5,
+                  self_calibrate=True, full_matrix=None, tolerance=12.0, max_candidates=12, step_nm=0.5,
                   pixel_size_um=None, angle_deg=None, progress=None, lookup=None):
     """Turn a photo of interference colours into a thickness map.
 
@@ -390,7 +427,7 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
             has = np.isfinite(ct[..., 0])
             if not has.any():
                 break
-            chosen = _resolve(ct, cd, has, small_anchors, period)[0]
+            chosen = _resolve(ct, cd, has, small_anchors, period, small_colours.per_pixel(small_colours.lab))[0]
             camera, shift, fitted = _refit_camera(camera, chosen, has, srgb_decode(small), lookup, full_matrix)
             shift_dE += shift
             calibration.update(fitted)
@@ -401,7 +438,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
         raise FilmcalcError(f"No pixel matches any colour of this stack between {range_nm[0]:g} and "
                             f"{range_nm[1]:g} nm: check the stack, the light, the exposure and the range.")
     report(0.8, "resolving fringe orders")
-    chosen, pick, local, region, n_seeds = _resolve(cand_t, cand_d, has, anchors, period)
+    chosen, pick, local, region, n_seeds = _resolve(cand_t, cand_d, has, anchors, period,
+                                                    colours.per_pixel(colours.lab))
     report(0.9, "uncertainty and flags")
     best_d = np.take_along_axis(cand_d, pick[..., None], axis=-1)[..., 0]
     ok = has & np.isfinite(chosen)
@@ -490,7 +528,7 @@ def _refit_camera(camera, chosen, has, linear, lookup, full_matrix):
     gains = _fit_camera(pred, obs, False)
     if use_full:
         # Ridge towards the gains: a full matrix only moves as far as the data demand.
-        lam = 0.05 * np.trace(pred.T @ pred) / 3
+        lam = 0.01 * np.trace(pred.T @ pred) / 3
         new = np.linalg.solve(pred.T @ pred + lam * np.eye(3), pred.T @ obs + lam * gains.T).T
     else:
         new = gains
