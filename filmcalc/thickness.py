@@ -55,7 +55,7 @@ from .appearance import film_colours, fringe_order
 from .colour import XYZ_to_Lab, _adaptation_matrix, _xy_to_XYZ, _D65_XY, delta_E_2000, srgb_decode, srgb_encode
 from .errors import FilmcalcError
 
-__all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS",
+__all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS", "TRENDS",
            "lab_of_encoded"]
 
 FLAGS = {"saturated": 1, "dark": 2, "no_match": 4, "ambiguous": 8, "unanchored": 16, "inconsistent": 32}
@@ -225,7 +225,10 @@ def _nearest_candidate(cand_t, cand_d, reference, colour_weight):
 EDGE_DE = 12.0  # colour change between neighbours (ΔE76) taken as an edge of the film (a step)
 
 
-def _grow(cand_t, cand_d, seeds, period_nm, valid, lab):
+TRENDS = {"right": (0, 1), "left": (0, -1), "down": (1, 0), "up": (-1, 0)}
+
+
+def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
     """Quality-guided growth over a small grid; returns chosen thickness (NaN unreached) and region ids.
 
     Across a smooth film the next pixel takes the candidate nearest the
@@ -233,7 +236,10 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab):
     Across an edge (a colour change above ``EDGE_DE``, e.g. an etched step)
     continuity says little, so the colour decides: the best-matching
     candidates (within 2 ΔE of the best) compete on continuity only.
+    A trend (the direction in which the film gets thicker) penalises
+    candidates that would make the film thinner in that direction.
     """
+    ty, tx = TRENDS[trend] if trend else (0, 0)
     H, W, C = cand_t.shape
     edge = np.zeros((H, W, 4), dtype=bool)
     dy = np.linalg.norm(np.diff(lab, axis=0), axis=-1)
@@ -283,6 +289,9 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab):
                         if t == t and d <= floor:  # not NaN, and a good enough match at an edge
                             jump = min(abs(t - predicted), abs(t - t0))
                             cost = jump + 0.5 * d
+                            along = (yy - y) * ty + (xx - x) * tx
+                            if along and (t - t0) * along < -0.05 * period_nm:
+                                cost += period_nm  # against the trend
                             if cost < best_cost:
                                 best, best_cost, best_jump, best_d = t, cost, jump, d
                     chosen[yy][xx] = best
@@ -316,7 +325,7 @@ def _blur_normalised(values, weights, sigma):
     return np.divide(num, den, out=np.full(values.shape, np.nan), where=den > 1e-12)
 
 
-def _resolve(cand_t, cand_d, valid, anchors, period_nm, lab, coarse_max=96):
+def _resolve(cand_t, cand_d, valid, anchors, period_nm, lab, trend=None, coarse_max=96):
     """Order resolution, coarse to fine (see the module docstring)."""
     from scipy.ndimage import zoom
 
@@ -333,7 +342,7 @@ def _resolve(cand_t, cand_d, valid, anchors, period_nm, lab, coarse_max=96):
     hb, wb = ct.shape[:2]
     pad = np.pad(lab, ((0, hb * step - H), (0, wb * step - W), (0, 0)), mode="edge")
     lab_blocks = pad.reshape(hb, step, wb, step, 3).mean(axis=(1, 3))
-    coarse, region = _grow(ct, cd, seeds, period_nm, cv, lab_blocks)
+    coarse, region = _grow(ct, cd, seeds, period_nm, cv, lab_blocks, trend)
     # Fill unreached coarse cells so the upsampled reference is defined everywhere.
     filled = np.where(np.isnan(coarse), _blur_normalised(coarse, np.ones_like(coarse), 2.0), coarse)
     filled = np.where(np.isnan(filled), np.nanmean(coarse) if np.any(np.isfinite(coarse)) else 0.0, filled)
@@ -359,7 +368,7 @@ def _fit_camera(pred_linear, obs_linear, full_matrix):
     return np.diag(g)
 
 
-def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), reference=None,
+def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), reference=None, trend=None,
                   self_calibrate=True, full_matrix=None, tolerance=12.0, max_candidates=12, step_nm=0.5,
                   pixel_size_um=None, angle_deg=None, progress=None, lookup=None):
     """Turn a photo of interference colours into a thickness map.
@@ -375,6 +384,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
         Pixels of known thickness (x = column, y = row from the top-left).
     reference : (x0, y0, x1, y1, thickness_nm), optional
         A rectangle (inclusive corners) of known thickness for the camera gains.
+    trend : {"right", "left", "down", "up"}, optional
+        The direction in which the film gets thicker, where the user knows it.
     self_calibrate : bool
         Without a reference, fit the camera correction jointly with the map.
     full_matrix : bool, optional
@@ -399,6 +410,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
         raise FilmcalcError("This photo is greyscale: colour cannot tell thickness here. Use the monochromatic "
                             "fringe analysis for photos taken under line light or through a band-pass filter.")
     anchors = [(int(x), int(y), float(t)) for x, y, t in anchors]
+    if trend is not None and trend not in TRENDS:
+        raise FilmcalcError(f"The trend must be one of {', '.join(TRENDS)} (the direction of thicker film).")
     for x, y, t in anchors:
         if not (0 <= x < W and 0 <= y < H):
             raise FilmcalcError(f"Anchor ({x}, {y}) lies outside the {W} × {H} photo.")
@@ -427,7 +440,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
             has = np.isfinite(ct[..., 0])
             if not has.any():
                 break
-            chosen = _resolve(ct, cd, has, small_anchors, period, small_colours.per_pixel(small_colours.lab))[0]
+            chosen = _resolve(ct, cd, has, small_anchors, period, small_colours.per_pixel(small_colours.lab),
+                              trend)[0]
             camera, shift, fitted = _refit_camera(camera, chosen, has, srgb_decode(small), lookup, full_matrix)
             shift_dE += shift
             calibration.update(fitted)
@@ -439,7 +453,7 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
                             f"{range_nm[1]:g} nm: check the stack, the light, the exposure and the range.")
     report(0.8, "resolving fringe orders")
     chosen, pick, local, region, n_seeds = _resolve(cand_t, cand_d, has, anchors, period,
-                                                    colours.per_pixel(colours.lab))
+                                                    colours.per_pixel(colours.lab), trend)
     report(0.9, "uncertainty and flags")
     best_d = np.take_along_axis(cand_d, pick[..., None], axis=-1)[..., 0]
     ok = has & np.isfinite(chosen)

@@ -1,0 +1,123 @@
+"""Photo → thickness: recovery of invented fields rendered with the forward model.
+
+These are self-consistency checks of the inversion (the forward model itself
+is checked against published values and independent libraries in
+test_optics.py and test_appearance.py). Tolerances are stated per test.
+"""
+
+import numpy as np
+import pytest
+
+from filmcalc.errors import FilmcalcError
+from filmcalc.stack import loads_stack
+from filmcalc.synthetic import CameraSettings, dome, render_photo, steps, wedge
+from filmcalc.thickness import FLAGS, build_lookup, thickness_map
+
+OXIDE = loads_stack('name = "oxide"\n[ambient]\nmaterial = "air"\n[[layers]]\nmaterial = "fused-silica"\n'
+                    'thickness_nm = 100\nunknown = true\n[substrate]\nmaterial = "silicon"\n[light]\nsource = "F2"\n')
+SHAPE = (90, 150)
+
+
+@pytest.fixture(scope="module")
+def lookup():
+    return build_lookup(OXIDE, (0.0, 1500.0))
+
+
+def errors(result, truth):
+    err = result.thickness_nm - truth
+    good = np.isfinite(err)
+    return err[good], good.mean()
+
+
+def test_wedge_recovered(lookup):
+    truth = wedge(SHAPE, 20, 1100)
+    result = thickness_map(render_photo(OXIDE, truth), OXIDE, lookup=lookup)
+    err, coverage = errors(result, truth)
+    assert coverage > 0.99
+    assert np.mean(np.abs(err) > 25) == 0  # no wrong fringe order
+    assert np.sqrt(np.mean(err**2)) < 2.0
+    assert result.order.max() == 6 and result.order[:, 0].max() == 1
+
+
+def test_dome_with_camera_errors(lookup):
+    # White balance off by 10 %, exposure off by 20 %: the self-calibration finds the gains.
+    truth = dome(SHAPE, 100, 1000)
+    gains = np.array([1.1, 1.0, 0.9]) * 0.8
+    photo = render_photo(OXIDE, truth, CameraSettings(gains=tuple(gains / 0.8), exposure=0.8))
+    result = thickness_map(photo, OXIDE, lookup=lookup)
+    err, _ = errors(result, truth)
+    assert np.mean(np.abs(err) > 25) < 0.005 and np.sqrt(np.mean(err**2)) < 5
+    assert result.camera.gains == pytest.approx(gains, rel=0.03)
+    assert result.calibration["method"] == "self-calibration"
+
+
+def test_reference_region_gives_gains(lookup):
+    truth = steps(SHAPE, [0.0, 150.0, 300.0])
+    photo = render_photo(OXIDE, truth, CameraSettings(gains=(1.2, 1.0, 0.85)))
+    result = thickness_map(photo, OXIDE, reference=(2, 2, 30, 80, 0.0), anchors=[(10, 45, 0.0)], lookup=lookup)
+    assert result.camera.gains == pytest.approx([1.2, 1.0, 0.85], rel=0.01)
+    assert result.calibration["method"] == "reference region"
+
+
+def test_steps_stay_sharp_and_anchor_is_respected(lookup):
+    # Steps of 120–150 nm (most of a fringe period, 188 nm) cannot be ordered from
+    # continuity alone; an anchor on the bare band and the trend ("thicker to the
+    # right") are what a user of an etched step coupon knows.
+    levels = [0.0, 120.0, 250.0, 400.0, 560.0, 700.0]
+    truth = steps(SHAPE, levels)
+    result = thickness_map(render_photo(OXIDE, truth), OXIDE, anchors=[(5, 45, 0.0)], trend="right",
+                           lookup=lookup)
+    err, _ = errors(result, truth)
+    assert np.mean(np.abs(err) > 25) == 0
+    # The anchor's pixel gets its thickness, and each band is flat right up to its edges.
+    assert result.thickness_nm[45, 5] == pytest.approx(0.0, abs=5)
+    row = result.thickness_nm[45]
+    edges = np.flatnonzero(np.diff(truth[45]))
+    for e in edges:
+        assert abs(row[e] - truth[45, e]) < 10 and abs(row[e + 1] - truth[45, e + 1]) < 10
+
+
+def test_uncertainty_and_flags(lookup):
+    truth = wedge(SHAPE, 50, 900)
+    photo = render_photo(OXIDE, truth, CameraSettings(noise=0.004, seed=3))
+    photo[:10, :10] = 1.0  # a blown-out corner
+    photo[-10:, -10:] = 0.0  # a black corner
+    result = thickness_map(photo, OXIDE, lookup=lookup)
+    assert result.flag_mask("saturated")[:10, :10].all() and result.flag_mask("dark")[-10:, -10:].all()
+    assert np.isnan(result.thickness_nm[0, 0]) and np.isnan(result.thickness_nm[-1, -1])
+    good = result.flags == 0
+    err = np.abs(result.thickness_nm - truth)[good]
+    sigma = result.sigma_nm[good]
+    # Calibrated 1σ: most errors within 2σ, and σ is not vastly larger than the errors.
+    assert np.mean(err <= 2 * sigma + 0.5) > 0.9
+    assert np.median(sigma) < 10 * max(np.median(err), 0.5)
+    assert np.nanmax(result.residual_dE) < 10
+    assert 0 < result.statistics["mean_nm"] < 1000 and result.statistics["good_pixels"] > 0.8 * truth.size
+
+
+@pytest.mark.parametrize("photo, message", [
+    (np.full((20, 20, 3), 0.5), "greyscale"),
+    (np.zeros((20, 20, 3)), "greyscale|saturated or nearly black"),
+])
+def test_bad_photos(photo, message, lookup):
+    with pytest.raises(FilmcalcError, match=message):
+        thickness_map(photo, OXIDE, lookup=lookup)
+
+
+def test_no_possible_solution():
+    # A saturated pure green no film of this stack can show: a clear message, not a guess.
+    photo = np.zeros((20, 20, 3))
+    photo[..., 1] = 0.9
+    photo[..., 0] = 0.05
+    with pytest.raises(FilmcalcError, match="No pixel matches"):
+        thickness_map(photo, OXIDE, (0.0, 100.0), self_calibrate=False)
+
+
+def test_bad_anchor_and_reference(lookup):
+    photo = render_photo(OXIDE, wedge(SHAPE, 20, 500))
+    with pytest.raises(FilmcalcError, match="outside the 150 × 90 photo"):
+        thickness_map(photo, OXIDE, anchors=[(500, 5, 10.0)], lookup=lookup)
+    with pytest.raises(FilmcalcError, match="outside the range"):
+        thickness_map(photo, OXIDE, anchors=[(5, 5, 5000.0)], lookup=lookup)
+    with pytest.raises(FilmcalcError, match="Reference rectangle"):
+        thickness_map(photo, OXIDE, reference=(0, 0, 999, 5, 0.0), lookup=lookup)
