@@ -18,6 +18,12 @@ chart STACK.toml --from NM --to NM --step NM [--angles A:B:STEP] --out FILE.png|
 match STACK.toml --colour "#RRGGBB" [--range MIN:MAX] [--tolerance DE] [--angle DEG] [--json]
     Every thickness in the range whose colour is within the ΔE₀₀ tolerance.
 
+map PHOTO STACK.toml --out FILE(.npy|.tiff|.csv|.png) [--range MIN:MAX] [--anchor X,Y,NM]...
+    [--reference X0,Y0,X1,Y1,NM] [--trend right|left|down|up] [--pixel-size UM] [--json]
+    Photo of interference colours → thickness map (X = column, Y = row from the
+    top-left, in pixels; the reference rectangle's corners are inclusive). A
+    provenance record FILE.json is written beside the map.
+
 Errors a user can cause print one line to stderr and exit with status 2;
 material warnings go to stderr and do not change the output.
 """
@@ -189,6 +195,88 @@ def _match(args):
               f"{cand['to_nm']:g},{cand['hex']}")
 
 
+def _numbers(text, count, what):
+    try:
+        values = [float(v) for v in text.split(",")]
+    except ValueError:
+        values = []
+    if len(values) != count:
+        raise FilmcalcError(f"{what} needs {count} comma-separated numbers (got {text!r}).")
+    return values
+
+
+def _map(args):
+    import hashlib
+    import time
+    from pathlib import Path
+
+    from . import io as fio
+    from .thickness import FLAGS, thickness_map
+
+    started = time.perf_counter()
+    stack = _film_stack(args.stack)
+    photo = fio.load_photo(args.photo)
+    if photo.greyscale:
+        raise FilmcalcError(f"{photo.name} is a greyscale image: colour cannot tell thickness. Use the "
+                            "monochromatic fringe analysis for photos under line light.")
+    lo, hi = parse_range(args.range, "--range", 2)
+    anchors = []
+    for text in args.anchor or []:
+        x, y, t = _numbers(text, 3, "--anchor X,Y,NM")
+        anchors.append((int(x), int(y), t))
+    reference = None
+    if args.reference:
+        x0, y0, x1, y1, t = _numbers(args.reference, 5, "--reference X0,Y0,X1,Y1,NM")
+        reference = (int(x0), int(y0), int(x1), int(y1), t)
+    if args.pixel_size is not None and args.pixel_size <= 0:
+        raise FilmcalcError("--pixel-size must be > 0 µm.")
+    out = Path(args.out)
+    suffix = out.suffix.lower()
+    if suffix not in (".npy", ".tif", ".tiff", ".csv", ".png"):
+        raise FilmcalcError("--out must end in .npy, .tif, .tiff, .csv or .png.")
+
+    def progress(fraction, message):
+        if not args.json:
+            print(f"\r[{'#' * int(20 * fraction):<20}] {message:<40}", end="", file=sys.stderr, flush=True)
+
+    result = thickness_map(photo.rgb, stack, (lo, hi), anchors=anchors, reference=reference, trend=args.trend,
+                           pixel_size_um=args.pixel_size, progress=progress)
+    if not args.json:
+        print(file=sys.stderr)
+    _warn(result.warnings)
+    if suffix == ".npy":
+        fio.save_map_npy(out, result.thickness_nm)
+    elif suffix in (".tif", ".tiff"):
+        fio.save_map_tiff(out, result.thickness_nm, args.pixel_size)
+    elif suffix == ".csv":
+        fio.save_map_csv(out, result.thickness_nm, result.sigma_nm, result.flags, result.residual_dE)
+    else:
+        fio.save_map_png(out, result.thickness_nm, f"{stack.name}: {photo.name}", pixel_size_um=args.pixel_size)
+    stack_text = Path(args.stack).read_bytes()
+    record = {
+        "filmcalc_version": __version__, "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "photo": {"file": photo.name, "sha256": photo.sha256, "width": photo.shape[1], "height": photo.shape[0],
+                  "bit_depth": photo.bit_depth},
+        "stack": {"file": str(args.stack), "sha256": hashlib.sha256(stack_text).hexdigest(), "name": stack.name,
+                  "light": stack.light.source, "angle_deg": stack.light.angle_deg},
+        "settings": {"range_nm": [lo, hi], "anchors": anchors, "reference": reference, "trend": args.trend,
+                     "pixel_size_um": args.pixel_size},
+        "calibration": result.calibration, "statistics": result.statistics,
+        "flags": {name: int(np.count_nonzero(result.flags & bit)) for name, bit in FLAGS.items()},
+        "warnings": result.warnings, "seconds": round(time.perf_counter() - started, 3), "output": str(out),
+    }
+    fio.save_provenance(out.with_suffix(".json") if suffix != ".json" else out, record)
+    if args.json:
+        print(json.dumps(record, indent=1, default=fio._jsonable))
+    else:
+        st = result.statistics
+        print(f"wrote {out} and {out.with_suffix('.json')}")
+        if "mean_nm" in st:
+            print(f"thickness {st['mean_nm']:.1f} ± {st['std_nm']:.1f} nm (mean ± σ over good pixels), "
+                  f"{st['min_nm']:.1f}–{st['max_nm']:.1f} nm; {100 * st['flagged_fraction']:.1f} % flagged; "
+                  f"{record['seconds']:.1f} s")
+
+
 def _add_colour_options(p):
     p.add_argument("--exposure", type=float, default=1.0, help="exposure factor (default 1)")
     p.add_argument("--observer", choices=("2", "10"), default="2", help="CIE 1931 2° or 1964 10° observer")
@@ -239,6 +327,18 @@ def build_parser():
     _add_colour_options(mp)
     mp.add_argument("--json", action="store_true", help="print JSON")
     mp.set_defaults(run=_match)
+
+    tp = sub.add_parser("map", help="photo of interference colours → thickness map")
+    tp.add_argument("photo", help="PNG, JPEG or TIFF photo")
+    tp.add_argument("stack", help="stack file (TOML)")
+    tp.add_argument("--out", required=True, help="FILE.npy, .tiff, .csv or .png (a FILE.json record is added)")
+    tp.add_argument("--range", default="0:1500", help="MIN:MAX thickness, nm (default 0:1500)")
+    tp.add_argument("--anchor", action="append", help="X,Y,NM: a pixel of known thickness (repeatable)")
+    tp.add_argument("--reference", help="X0,Y0,X1,Y1,NM: a rectangle of known thickness (camera gains)")
+    tp.add_argument("--trend", choices=("right", "left", "down", "up"), help="where the film gets thicker")
+    tp.add_argument("--pixel-size", type=float, help="µm per pixel")
+    tp.add_argument("--json", action="store_true", help="print the summary record as JSON")
+    tp.set_defaults(run=_map)
     return parser
 
 

@@ -204,9 +204,25 @@ class _Colours:
         return np.asarray(values)[self.inverse].reshape(self.shape + np.shape(values)[1:])
 
 
+def _refined_candidates(lab_obs, lab_lut, tolerance, max_candidates, coarse=4):
+    """Candidates found on every ``coarse``-th lookup entry, then refined on the full lookup nearby."""
+    L = lab_lut.shape[0]
+    idx, dist = _candidates(lab_obs, lab_lut[::coarse], tolerance + 2.0, max_candidates)
+    offsets = np.arange(-coarse, coarse + 1)
+    fine = np.clip(idx[..., None] * coarse + offsets, 0, L - 1)  # (U, C, 2·coarse+1)
+    d = np.linalg.norm(lab_lut[fine] - lab_obs[:, None, None, :], axis=-1)
+    best = np.argmin(d, axis=-1)
+    idx_f = np.take_along_axis(fine, best[..., None], axis=-1)[..., 0]
+    dist_f = np.take_along_axis(d, best[..., None], axis=-1)[..., 0]
+    keep = (idx >= 0) & (dist_f <= tolerance)
+    idx_f, dist_f = np.where(keep, idx_f, -1), np.where(keep, dist_f, np.inf)
+    order = np.argsort(dist_f, axis=1)
+    return np.take_along_axis(idx_f, order, axis=1), np.take_along_axis(dist_f, order, axis=1)
+
+
 def _pixel_candidates(colours, usable, lookup, camera, tolerance, max_candidates):
     """Candidates per pixel: thickness (H, W, C) and ΔE76 (H, W, C), NaN / inf where none."""
-    idx, dist = _candidates(colours.lab, lookup.lab(camera), tolerance, max_candidates)
+    idx, dist = _refined_candidates(colours.lab, lookup.lab(camera), tolerance, max_candidates)
     t = np.where(idx >= 0, lookup.thickness_nm[np.maximum(idx, 0)], np.nan).astype(np.float32)
     cand_t = colours.per_pixel(t)
     cand_d = colours.per_pixel(dist.astype(np.float32))
@@ -432,7 +448,10 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
         # Fit the camera on a subsample (≤ 250 000 pixels), alternating with the map.
         stride = max(1, int(np.ceil(np.sqrt(H * W / 250_000))))
         small = np.ascontiguousarray(rgb[::stride, ::stride])
-        small_colours, small_valid = _Colours.of(small), valid[::stride, ::stride]
+        # Calibration works on colours rounded to 6 bits a channel: far fewer to search, and a
+        # camera fit over thousands of pixels does not need the last bits.
+        small_colours = _Colours.of(np.rint(small * 63) / 63)
+        small_valid = valid[::stride, ::stride]
         small_anchors = [(x // stride, y // stride, t) for x, y, t in anchors]
         for k in range(3):
             report(0.1 + 0.2 * k, f"calibrating the camera (pass {k + 1} of 3)")

@@ -77,3 +77,33 @@ def test_match(capsys):
     found = json.loads(capsys.readouterr().out)["candidates"]
     assert abs(found[0]["thickness_nm"] - 300) <= 2 and found[0]["delta_E"] < 1.0
     assert main(["match", OXIDE, "--colour", "purple"]) == 2
+
+
+def test_map_on_a_demo_photo(tmp_path, capsys):
+    import tifffile
+    photo = str(Path(__file__).parent.parent / "demo_data" / "photos" / "oxide-coupon-steps.png")
+    out = tmp_path / "coupon.tiff"
+    assert main(["map", photo, OXIDE, "--out", str(out), "--reference", "2,2,40,197,0", "--anchor", "10,100,0",
+                 "--trend", "right", "--pixel-size", "2.0", "--json"]) == 0
+    record = json.loads(capsys.readouterr().out)
+    assert record["calibration"]["method"] == "reference region"
+    assert record["statistics"]["flagged_fraction"] < 0.05 and len(record["photo"]["sha256"]) == 64
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["coupon.json", "coupon.tiff"]  # nothing else written
+    truth = np.load(Path(photo).with_name("oxide-coupon-steps-truth.npz"))["thickness_nm"]
+    result = tifffile.imread(out)
+    good = np.isfinite(result)
+    assert np.mean(np.abs(result[good] - truth[good]) > 25) < 0.01
+
+
+def test_map_bad_inputs(tmp_path, capsys):
+    text = tmp_path / "not-an-image.png"
+    text.write_text("hello")
+    assert main(["map", str(text), OXIDE, "--out", str(tmp_path / "m.npy")]) == 2
+    assert "not a readable" in capsys.readouterr().err
+    empty = tmp_path / "empty.png"
+    empty.write_bytes(b"")
+    assert main(["map", str(empty), OXIDE, "--out", str(tmp_path / "m.npy")]) == 2
+    photo = str(Path(__file__).parent.parent / "demo_data" / "photos" / "oil-on-water.png")
+    assert main(["map", photo, OXIDE, "--out", str(tmp_path / "m.txt")]) == 2
+    assert main(["map", photo, OXIDE, "--out", str(tmp_path / "m.npy"), "--anchor", "1,2"]) == 2
+    assert not (tmp_path / "m.npy").exists()
