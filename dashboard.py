@@ -10,6 +10,7 @@ st.set_page_config(page_title="filmcalc", page_icon=":material/layers:", layout=
 pages = [
     st.Page("filmcalc/ui/film_spectrum.py", title="Film spectrum", icon=":material/show_chart:", default=True),
     st.Page("filmcalc/ui/colour_charts.py", title="Colour charts", icon=":material/palette:"),
+    st.Page("filmcalc/ui/photo_map.py", title="Thickness from a photo", icon=":material/image:"),
     st.Page("filmcalc/ui/stack_builder.py", title="Stack builder", icon=":material/layers:"),
     st.Page("filmcalc/ui/safety.py", title="Cautions", icon=":material/health_and_safety:"),
 ]

@@ -16,6 +16,8 @@ chromaticity_figure
     The colour path in the CIE xy or u′v′ diagram, labelled with thickness.
 spectrum_figure
     Reflectance spectrum (s, p, unpolarised) at one thickness and angle.
+calibration_figure, map_figure
+    Diagnostics and results of the photo inversion.
 bench_chart, thickness_angle_chart_image, save_bench_chart
     A printable chart of labelled swatches with a title block (PNG or PDF,
     A4 or Letter), drawn with matplotlib so no browser is needed.
@@ -42,7 +44,7 @@ from .errors import FilmcalcError
 
 __all__ = ["THICKNESS_UNITS", "thickness_unit", "colour_table", "colour_strip_figure", "thickness_angle_figure",
            "reflectance_map_figure", "chromaticity_figure", "spectrum_figure", "bench_chart",
-           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN"]
+           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure"]
 
 THICKNESS_UNITS = {"nm": 1.0, "µm": 1e-3, "Å": 10.0}
 _UNIT_ALIASES = {"nm": "nm", "um": "µm", "µm": "µm", "micron": "µm", "a": "Å", "å": "Å", "angstrom": "Å"}
@@ -250,6 +252,45 @@ def spectrum_figure(reflectance, polarisation="unpolarised", title=""):
     fig.update_layout(title=title, xaxis_title="wavelength (nm)", yaxis_title="reflectance (%)", height=430,
                       margin={"l": 10, "r": 10, "t": 50, "b": 10}, legend={"orientation": "h", "y": -0.2})
     fig.update_yaxes(rangemode="tozero")
+    return fig
+
+
+def calibration_figure(photo_lab, path_lab_before, path_lab_after, path_thickness_nm, max_points=4000, title=None):
+    """Diagnostic: the photo's colours over the predicted colour path in CIELAB a*b*.
+
+    If the photo's colours do not lie along the path, the stack, light or
+    camera correction is wrong; the path is drawn before (dotted) and after
+    (solid) calibration.
+    """
+    pts = np.asarray(photo_lab).reshape(-1, 3)
+    pts = pts[np.all(np.isfinite(pts), axis=1)]
+    if pts.shape[0] > max_points:
+        pts = pts[np.random.default_rng(0).choice(pts.shape[0], max_points, replace=False)]
+    fig = go.Figure()
+    fig.add_trace(go.Scatter(x=pts[:, 1], y=pts[:, 2], mode="markers", name="photo pixels",
+                             marker={"size": 3, "color": "rgba(80,80,80,0.35)"}, hoverinfo="skip"))
+    for lab, name, dash in ((path_lab_before, "predicted, before calibration", "dot"),
+                            (path_lab_after, "predicted, after calibration", "solid")):
+        fig.add_trace(go.Scatter(x=lab[:, 1], y=lab[:, 2], mode="lines", name=name, line={"dash": dash},
+                                 customdata=path_thickness_nm,
+                                 hovertemplate="%{customdata:.1f} nm<br>a* %{x:.1f}, b* %{y:.1f}<extra></extra>"))
+    fig.update_layout(title=title or "Photo colours on the predicted colour path (CIELAB a*b*, D65)",
+                      xaxis_title="a*", yaxis_title="b*", height=480, margin={"l": 10, "r": 10, "t": 50, "b": 40})
+    fig.update_yaxes(scaleanchor="x", scaleratio=1)
+    return fig
+
+
+def map_figure(values, title, label, colorscale="cividis", zmin=None, zmax=None, pixel_size_um=None):
+    """A map (thickness, uncertainty, residual) as a heatmap with hover readout."""
+    h, w = np.shape(values)
+    unit = "µm" if pixel_size_um else "px"
+    scale = pixel_size_um or 1.0
+    fig = go.Figure(go.Heatmap(z=values, x=np.arange(w) * scale, y=np.arange(h) * scale, colorscale=colorscale,
+                               zmin=zmin, zmax=zmax, colorbar={"title": label},
+                               hovertemplate=f"x %{{x:.4g}} {unit}, y %{{y:.4g}} {unit}<br>{label} %{{z:.4g}}"
+                                             "<extra></extra>"))
+    fig.update_layout(title=title, height=420, margin={"l": 10, "r": 10, "t": 40, "b": 10})
+    fig.update_yaxes(autorange="reversed", scaleanchor="x", scaleratio=1)
     return fig
 
 

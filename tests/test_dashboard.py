@@ -86,3 +86,16 @@ def test_stack_builder_builds_and_shares():
     at.text_input(key=substrate).set_value("n=2.5, k=3.4").run()
     at.button[0].click().run()
     assert "k = 3.4" in at.session_state["builder_text"]
+
+
+def test_photo_page_every_demo_photo():
+    at = run_page("photo_map.py", timeout=120)
+    assert not at.exception
+    names = at.selectbox(key="photo_demo").options
+    assert len(names) == 4
+    for name in names:
+        at.selectbox(key="photo_demo").set_value(name).run()
+        assert not at.exception, name
+        at.button(key="photo_run").click().run()
+        assert not at.exception and not at.error, name
+        assert any("mean thickness" in m.label for m in at.metric), name

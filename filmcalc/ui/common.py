@@ -63,8 +63,9 @@ def stack_picker():
     saved = st.session_state.get("stack_choice_saved", options[0])
     with st.sidebar:
         st.header("Stack")
-        choice = st.selectbox("Sample", options, index=options.index(saved) if saved in options else 0,
-                              key="stack_choice", on_change=_remember, args=("stack_choice",),
+        if st.session_state.get("stack_choice") not in options:
+            st.session_state["stack_choice"] = saved if saved in options else options[0]
+        choice = st.selectbox("Sample", options, key="stack_choice", on_change=_remember, args=("stack_choice",),
                               help="Demo samples are invented; their stack files are in demo_data/.")
         upload = st.file_uploader("Load a stack file (TOML)", type=["toml"], key="stack_upload",
                                   help="Used only in this browser session; not part of shared links.")

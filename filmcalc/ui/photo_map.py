@@ -1,0 +1,205 @@
+"""Photo → thickness page: a photo of interference colours becomes a calibrated thickness map."""
+
+import json
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import plotly.graph_objects as go
+import streamlit as st
+
+from filmcalc import io as fio
+from filmcalc.charts import calibration_figure, map_figure
+from filmcalc.errors import FilmcalcError
+from filmcalc.thickness import FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded, thickness_map
+from filmcalc.ui.common import DEMO_DIR, cautions_box, demo_stacks, load_or_stop, stack_picker
+
+PHOTO_DIR = DEMO_DIR / "photos"
+
+st.title("Thickness from a photo")
+st.write("Load a photo of interference colours, say which stack it shows and what you know about the sample "
+         "(thickness range, a pixel of known thickness, a reference region), and get a thickness map with its "
+         "uncertainty. Pixel coordinates count from the top-left corner: x along a row, y down the image.")
+
+demos = {json.loads(p.read_text())["photo"]: json.loads(p.read_text()) for p in sorted(PHOTO_DIR.glob("*.json"))}
+source = st.radio("Photo", ["demo photo", "my photo"], horizontal=True, key="photo_source")
+if source == "demo photo":
+    name = st.selectbox("Demo photo", list(demos), key="photo_demo",
+                        help="Invented samples rendered by demo_data/make_demo_photos.py.")
+    settings = demos[name]
+    data, photo_name = (PHOTO_DIR / name).read_bytes(), name
+    # Show the demo's own stack unless the user picked another one for it.
+    stack_name = next((n for n, p in demo_stacks().items() if p.name == settings["stack"]), None)
+    if st.session_state.get("photo_demo_last") != name and stack_name:
+        st.session_state["stack_choice_saved"] = st.session_state["stack_choice"] = stack_name
+        st.session_state["photo_demo_last"] = name
+        for key in ("photo_result",):
+            st.session_state.pop(key, None)
+    st.caption(f"What the lab knows: {settings['note']}.")
+else:
+    upload = st.file_uploader("Photo (PNG, JPEG or TIFF; 8 or 16 bit)", type=["png", "jpg", "jpeg", "tif", "tiff"],
+                              key="photo_upload")
+    if upload is None:
+        st.info("Upload a photo, or pick a demo photo above.")
+        cautions_box()
+        st.stop()
+    data, photo_name, settings = upload.getvalue(), upload.name, {}
+
+text, base_dir, origin = stack_picker()
+stack = load_or_stop(text, base_dir, origin)
+
+try:
+    photo = fio.load_photo(data, name=photo_name)
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+if photo.greyscale:
+    st.error(f"{photo_name} is greyscale: colour cannot tell thickness here. Monochromatic fringe analysis "
+             "handles photos under line light (a separate page, not built yet).")
+    st.stop()
+H, W = photo.shape
+
+with st.sidebar:
+    st.header("What you know")
+    lo_default, hi_default = settings.get("range", [0, 1500])
+    c1, c2 = st.columns(2)
+    lo = c1.number_input("Thinnest (nm)", 0.0, 50000.0, float(lo_default), 10.0, key=f"lo::{photo_name}")
+    hi = c2.number_input("Thickest (nm)", 1.0, 50000.0, float(hi_default), 10.0, key=f"hi::{photo_name}")
+    trend_options = ["not known"] + list(TRENDS)
+    trend = st.selectbox("Film gets thicker towards", trend_options,
+                         index=trend_options.index(settings.get("trend") or "not known"), key=f"trend::{photo_name}")
+    pixel = st.number_input("Pixel size (µm, 0 = unknown)", 0.0, 10000.0, 0.0, 0.1, key=f"px::{photo_name}")
+    st.caption("Anchors: pixels of known thickness (x, y in pixels; thickness in nm).")
+    anchors_rows = st.data_editor([{"x": a[0], "y": a[1], "thickness (nm)": a[2]} for a in settings.get("anchors", [])],
+                                  num_rows="dynamic", key=f"anchors::{photo_name}",
+                                  column_config={"x": st.column_config.NumberColumn(min_value=0, step=1),
+                                                 "y": st.column_config.NumberColumn(min_value=0, step=1)})
+    ref_default = settings.get("reference")
+    use_ref = st.checkbox("Reference region of known thickness (sets the camera's gains)", ref_default is not None,
+                          key=f"useref::{photo_name}")
+    reference = None
+    if use_ref:
+        r = ref_default or [0, 0, min(20, W - 1), min(20, H - 1), 0.0]
+        cols = st.columns(5)
+        labels = ["x0", "y0", "x1", "y1", "nm"]
+        reference = [cols[i].number_input(labels[i], value=float(r[i]), key=f"ref{i}::{photo_name}")
+                     for i in range(5)]
+
+fig = go.Figure(go.Image(z=np.rint(photo.rgb * 255).astype(np.uint8),
+                         hovertemplate="x %{x}, y %{y}<extra></extra>"))
+for row in anchors_rows:
+    if row.get("x") is not None and row.get("y") is not None:
+        fig.add_trace(go.Scatter(x=[row["x"]], y=[row["y"]], mode="markers+text", text=[f"{row.get('thickness (nm)')} nm"],
+                                 textposition="top center", marker={"symbol": "x", "size": 10, "color": "white"},
+                                 showlegend=False, hoverinfo="skip"))
+if reference:
+    x0, y0, x1, y1, _ = reference
+    fig.add_shape(type="rect", x0=x0, y0=y0, x1=x1, y1=y1, line={"color": "white", "dash": "dot"})
+fig.update_layout(height=360, margin={"l": 0, "r": 0, "t": 10, "b": 0}, title=None)
+st.plotly_chart(fig, width="stretch")
+
+if st.button("Compute the thickness map", type="primary", key="photo_run"):
+    try:
+        anchors = [(int(r["x"]), int(r["y"]), float(r["thickness (nm)"])) for r in anchors_rows
+                   if r.get("x") is not None and r.get("y") is not None and r.get("thickness (nm)") is not None]
+        ref = None if not reference else (int(reference[0]), int(reference[1]), int(reference[2]),
+                                          int(reference[3]), float(reference[4]))
+        bar = st.progress(0.0, "starting")
+        result = thickness_map(photo.rgb, stack, (lo, hi), anchors=anchors, reference=ref,
+                               trend=None if trend == "not known" else trend, pixel_size_um=pixel or None,
+                               progress=lambda f, m: bar.progress(min(1.0, f), m))
+        bar.empty()
+        st.session_state["photo_result"] = {"result": result, "photo": photo_name, "stack": stack.name,
+                                            "settings": {"range_nm": [lo, hi], "anchors": anchors, "reference": ref,
+                                                         "trend": trend, "pixel_size_um": pixel or None}}
+    except FilmcalcError as exc:
+        st.error(str(exc))
+
+saved = st.session_state.get("photo_result")
+if not saved or saved["photo"] != photo_name:
+    cautions_box()
+    st.stop()
+
+result = saved["result"]
+for w in result.warnings:
+    st.warning(w)
+stats = result.statistics
+scale = pixel or None
+cols = st.columns(4)
+if "mean_nm" in stats:
+    cols[0].metric("mean thickness", f"{stats['mean_nm']:.1f} nm")
+    cols[1].metric("σ across the map", f"{stats['std_nm']:.1f} nm")
+    cols[2].metric("range", f"{stats['min_nm']:.0f}–{stats['max_nm']:.0f} nm")
+cols[3].metric("flagged pixels", f"{100 * stats['flagged_fraction']:.1f} %")
+st.caption(f"Computed in {result.seconds:.1f} s. Calibration: {result.calibration['method']}; gains "
+           f"{', '.join(f'{g:.3f}' for g in result.camera.gains)}. Median pixel uncertainty "
+           f"{np.nanmedian(result.sigma_nm):.1f} nm (1σ).")
+
+tabs = st.tabs(["Thickness", "Uncertainty", "Colour residual", "Flags", "Calibration check", "Profile and histogram",
+                "Downloads"])
+with tabs[0]:
+    st.plotly_chart(map_figure(result.thickness_nm, "thickness", "nm", pixel_size_um=scale), width="stretch")
+with tabs[1]:
+    st.plotly_chart(map_figure(result.sigma_nm, "uncertainty (1σ)", "nm", "Viridis", pixel_size_um=scale),
+                    width="stretch")
+with tabs[2]:
+    st.plotly_chart(map_figure(result.residual_dE, "colour residual", "ΔE00", "Magma", 0, 10, scale),
+                    width="stretch")
+with tabs[3]:
+    st.write("Flagged pixels get no thickness, or one to treat with care:")
+    st.dataframe([{"flag": k, "pixels": int(np.count_nonzero(result.flags & v)),
+                   "meaning": {"saturated": "a channel at its maximum", "dark": "too little light",
+                               "no_match": "no film colour within the tolerance",
+                               "ambiguous": "another fringe order fits about as well",
+                               "unanchored": "a region no anchor ties to",
+                               "inconsistent": "disagrees with its neighbours by over a third of an order"}[k]}
+                  for k, v in FLAGS.items()], hide_index=True, width="stretch")
+    st.plotly_chart(map_figure(result.flags.astype(float), "flags (bit values)", "flags", "Greys", pixel_size_um=scale),
+                    width="stretch")
+with tabs[4]:
+    lookup = build_lookup(stack, (lo, hi))
+    st.plotly_chart(calibration_figure(lab_of_encoded(photo.rgb), lookup.lab(CameraModel()),
+                                       lookup.lab(result.camera), lookup.thickness_nm), width="stretch")
+    st.caption("If the grey cloud of photo colours does not follow the solid path, the stack, the light or the "
+               "camera correction is off.")
+with tabs[5]:
+    axis = st.radio("Profile along", ["row", "column"], horizontal=True, key="profile_axis")
+    index = st.slider("Row (y)" if axis == "row" else "Column (x)", 0, (H if axis == "row" else W) - 1,
+                      (H if axis == "row" else W) // 2, key="profile_index")
+    values = result.thickness_nm[index] if axis == "row" else result.thickness_nm[:, index]
+    sig = result.sigma_nm[index] if axis == "row" else result.sigma_nm[:, index]
+    pos = np.arange(values.size) * (scale or 1)
+    prof = go.Figure([go.Scatter(x=pos, y=values + sig, line={"width": 0}, showlegend=False, hoverinfo="skip"),
+                      go.Scatter(x=pos, y=values - sig, fill="tonexty", line={"width": 0}, name="±1σ",
+                                 hoverinfo="skip"),
+                      go.Scatter(x=pos, y=values, name="thickness", line={"color": "black"})])
+    prof.update_layout(height=320, xaxis_title="position (µm)" if scale else "position (px)",
+                       yaxis_title="thickness (nm)", margin={"l": 10, "r": 10, "t": 20, "b": 10})
+    st.plotly_chart(prof, width="stretch")
+    good = result.thickness_nm[np.isfinite(result.thickness_nm)]
+    hist = go.Figure(go.Histogram(x=good, nbinsx=80))
+    hist.update_layout(height=280, xaxis_title="thickness (nm)", yaxis_title="pixels",
+                       margin={"l": 10, "r": 10, "t": 20, "b": 10})
+    st.plotly_chart(hist, width="stretch")
+with tabs[6]:
+    record = {"photo": {"file": photo_name, "sha256": photo.sha256, "width": W, "height": H},
+              "stack": saved["stack"], "settings": saved["settings"], "calibration": result.calibration,
+              "statistics": stats}
+    with tempfile.TemporaryDirectory() as tmp:
+        files = {}
+        stem = Path(photo_name).stem + "-thickness"
+        for ext, save in ((".tiff", lambda p: fio.save_map_tiff(p, result.thickness_nm, scale)),
+                          (".npy", lambda p: fio.save_map_npy(p, result.thickness_nm)),
+                          (".csv", lambda p: fio.save_map_csv(p, result.thickness_nm, result.sigma_nm, result.flags,
+                                                              result.residual_dE)),
+                          (".png", lambda p: fio.save_map_png(p, result.thickness_nm, photo_name, pixel_size_um=scale)),
+                          (".json", lambda p: fio.save_provenance(p, record))):
+            path = Path(tmp) / (stem + ext)
+            save(path)
+            files[ext] = path.read_bytes()
+    cols = st.columns(5)
+    for col, (ext, blob) in zip(cols, files.items()):
+        col.download_button(ext[1:].upper(), blob, stem + ext, key=f"dl{ext}")
+    st.caption("TIFF: float32 nm, opens in ImageJ/Fiji with unit and pixel size; CSV: x, y, thickness, σ, flags, "
+               "residual; JSON: the provenance record (photo hash, stack, settings, calibration, statistics).")
+cautions_box()
