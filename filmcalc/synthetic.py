@@ -8,6 +8,11 @@ CameraSettings, render_photo
     Render a field as a camera would record it: film colour, camera
     correction (white-balance and exposure errors, a colour matrix), noise,
     clipping, sRGB encoding, optional JPEG compression.
+measured_camera_lookup
+    The film's colours as a real, non-colorimetric camera records them:
+    rendered through measured spectral sensitivities (colour-science ships
+    them) and colour-corrected by a 3 × 3 matrix fitted on a colour checker,
+    as camera pipelines do.
 
 Used by the demo-data script, the tests and the benchmarks; every random
 number is seeded. The fields are invented, not measurements.
@@ -24,7 +29,7 @@ from .colour import srgb_encode
 from .thickness import build_lookup
 
 __all__ = ["wedge", "dome", "steps", "draining_soap_film", "edge_bead", "oil_lens", "CameraSettings",
-           "render_photo"]
+           "render_photo", "measured_camera_lookup"]
 
 
 def _grid(shape):
@@ -126,3 +131,46 @@ def render_photo(stack, thickness_nm, camera=None, lookup=None):
     else:
         encoded = np.rint(encoded * 255) / 255.0  # 8-bit, like a saved photo
     return encoded
+
+
+def measured_camera_lookup(stack, range_nm, camera_name="Nikon 5100 (NPL)", checker="BabelColor Average",
+                           step_nm=0.25):
+    """A colour lookup as a non-colorimetric camera would record the film.
+
+    The camera's raw RGB (measured sensitivities, white-balanced on the scene
+    light) is mapped to linear sRGB by the least-squares 3 × 3 matrix that
+    best reproduces the checker's 24 patches under the same light; film
+    colours, far more saturated than the patches, then come out shifted in
+    hue and chroma, as in a real camera.
+
+    Returns
+    -------
+    ColourLookup, numpy.ndarray
+        The lookup (``linear_rgb`` as the camera outputs it) and the fitted matrix.
+    """
+    import warnings
+
+    from .appearance import film_colours
+    from .colour import _adaptation_matrix, _cs, camera_kernel, CameraResponse, colour_kernel, reflectance_to_XYZ
+    from .optics import reflectance_sweep
+    from .thickness import ColourLookup
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sens = _cs.MSDS_CAMERA_SENSITIVITIES[camera_name]
+        patches = _cs.SDS_COLOURCHECKERS[checker]
+    camera = CameraResponse(sens.wavelengths, sens.values, camera_name)
+    wl = np.arange(380.0, 781.0, 5.0)
+    cam = camera_kernel(camera, stack.light.source, wl)
+    eye = colour_kernel(stack.light.source, "2", wl)
+    refl = np.array([np.interp(wl, sd.wavelengths, sd.values) for sd in patches.values()])
+    raw = reflectance_to_XYZ(refl, cam) / 100.0
+    target = (reflectance_to_XYZ(refl, eye) / 100.0) @ _adaptation_matrix(eye.white_XYZ).T
+    ccm, *_ = np.linalg.lstsq(raw, target, rcond=None)
+    thickness = np.arange(range_nm[0], range_nm[1] + step_nm / 2, step_nm)
+    R = reflectance_sweep(stack, wl, thickness).R[0]
+    linear = (reflectance_to_XYZ(R, cam) / 100.0) @ ccm
+    reference = film_colours(stack, thickness[:1])  # for the period and orders, as build_lookup does
+    from .appearance import fringe_order
+    orders = fringe_order(stack, np.append(thickness, 1.0), reference.angle_deg[0])
+    return ColourLookup(thickness, linear, np.floor(orders[:-1]).astype(int) + 1, float(1 / orders[-1])), ccm.T

@@ -251,11 +251,15 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
     thickness predicted from its neighbour (continuing the local slope).
     Across an edge (a colour change above ``EDGE_DE``, e.g. an etched step)
     continuity says little, so the colour decides: the best-matching
-    candidates (within 2 ΔE of the best) compete on continuity only.
+    candidates (within the photo's colour noise of the best, at least 2 ΔE)
+    compete on continuity only.
     A trend (the direction in which the film gets thicker) penalises
     candidates that would make the film thinner in that direction.
     """
     ty, tx = TRENDS[trend] if trend else (0, 0)
+    # At an edge, candidates within the photo's colour noise of the best one stay in the running.
+    best_match = cand_d[..., 0][valid & np.isfinite(cand_d[..., 0])]
+    noise_margin = max(2.0, 3.0 * float(np.median(best_match))) if best_match.size else 2.0
     H, W, C = cand_t.shape
     edge = np.zeros((H, W, 4), dtype=bool)
     dy = np.linalg.norm(np.diff(lab, axis=0), axis=-1)
@@ -294,7 +298,7 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
             for k, (yy, xx) in enumerate(((y + 1, x), (y - 1, x), (y, x + 1), (y, x - 1))):
                 if 0 <= yy < H and 0 <= xx < W and ok[yy][xx] and chosen[yy][xx] is None:
                     across_edge = edge[y][x][k]
-                    floor = min(cd[yy][xx]) + 2.0 if across_edge else 1e18
+                    floor = min(cd[yy][xx]) + noise_margin if across_edge else 1e18
                     # Predict by continuing the local slope (from the parent through this pixel),
                     # which keeps steep but smooth films on the right branch of the colour path.
                     p = parent[y][x]
