@@ -25,6 +25,7 @@ test: $(STAMP)
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_sweep.py
 	$(BIN)/python benchmarks/bench_chart.py
+	$(BIN)/python benchmarks/bench_photo.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache .hypothesis
