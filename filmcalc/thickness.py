@@ -221,21 +221,32 @@ def _refined_candidates(lab_obs, lab_lut, tolerance, max_candidates, coarse=4):
 
 
 def _pixel_candidates(colours, usable, lookup, camera, tolerance, max_candidates):
-    """Candidates per pixel: thickness (H, W, C) and ΔE76 (H, W, C), NaN / inf where none."""
+    """Candidates per pixel: thickness (H, W, C) and ΔE76 (H, W, C), +inf where none."""
     idx, dist = _refined_candidates(colours.lab, lookup.lab(camera), tolerance, max_candidates)
-    t = np.where(idx >= 0, lookup.thickness_nm[np.maximum(idx, 0)], np.nan).astype(np.float32)
+    # Missing candidates are +inf in both arrays, so no NaN needs handling downstream.
+    t = np.where(idx >= 0, lookup.thickness_nm[np.maximum(idx, 0)], np.inf).astype(np.float32)
     cand_t = colours.per_pixel(t)
     cand_d = colours.per_pixel(dist.astype(np.float32))
-    cand_t[~usable] = np.nan
+    cand_t[~usable] = np.inf
     cand_d[~usable] = np.inf
     return cand_t, cand_d
 
 
 def _nearest_candidate(cand_t, cand_d, reference, colour_weight):
-    """Index of the candidate nearest a reference thickness (colour distance as a tie-break)."""
-    cost = np.abs(cand_t - reference[..., None]) + colour_weight * cand_d
-    cost = np.where(np.isfinite(cand_t), cost, np.inf)
-    return np.argmin(cost, axis=-1)
+    """Index of the candidate nearest a reference thickness (colour distance as a tie-break).
+
+    Missing candidates carry an infinite colour distance, so they never win.
+    """
+    H, W, C = cand_t.shape
+    ct, cd = cand_t.reshape(-1, C), cand_d.reshape(-1, C)
+    ref = reference.reshape(-1, 1).astype(np.float32)
+    pick = np.empty(H * W, dtype=np.int64)
+    weight = np.float32(colour_weight)
+    for a in range(0, H * W, 65536):  # cache-sized blocks
+        cost = np.abs(ct[a:a + 65536] - ref[a:a + 65536])
+        cost += weight * cd[a:a + 65536]
+        pick[a:a + 65536] = np.argmin(cost, axis=-1)
+    return pick.reshape(H, W)
 
 
 EDGE_DE = 12.0  # colour change between neighbours (ΔE76) taken as an edge of the film (a step)
@@ -270,8 +281,10 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
     edge[:-1, :, 0] = edge[1:, :, 1] = dy > threshold      # (y+1, x) and (y-1, x)
     edge[:, :-1, 2] = edge[:, 1:, 3] = dx > threshold      # (y, x+1) and (y, x-1)
     edge = edge.tolist()
-    ct = np.where(np.isfinite(cand_t), cand_t, np.nan).tolist()
-    cd = np.where(np.isfinite(cand_d), cand_d, 1e9).tolist()
+    # Candidates far worse in colour than a cell's best never win; leaving them out keeps the loop short.
+    keep = np.isfinite(cand_t) & (cand_d <= cand_d[..., :1] + max(8.0, 3 * noise_margin))
+    ct = np.where(keep, cand_t, np.nan).tolist()
+    cd = np.where(keep, cand_d, 1e9).tolist()
     ok = (valid & np.isfinite(cand_t[..., 0])).tolist()
     chosen = [[None] * W for _ in range(H)]
     parent = [[None] * W for _ in range(H)]  # the neighbour a pixel was reached from
@@ -306,6 +319,8 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
                         2 * t0 - chosen[p[0]][p[1]]
                     best, best_cost, best_jump, best_d = None, 1e18, 0.0, 0.0
                     for t, d in zip(ct[yy][xx], cd[yy][xx]):
+                        if d > 1e8:
+                            break  # sorted by colour distance: the rest are missing
                         if t == t and d <= floor:  # not NaN, and a good enough match at an edge
                             jump = min(abs(t - predicted), abs(t - t0))
                             cost = jump + 0.5 * d
@@ -426,7 +441,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     if rgb.ndim != 3 or rgb.shape[2] != 3:
         raise FilmcalcError("The photo must be an RGB image.")
     H, W, _ = rgb.shape
-    if np.ptp(rgb, axis=-1).max() <= 2 / 255:
+    colours = _Colours.of(rgb)
+    if np.ptp(colours.rgb, axis=-1).max() <= 2 / 255:
         raise FilmcalcError("This photo is greyscale: colour cannot tell thickness here. Use the monochromatic "
                             "fringe analysis for photos taken under line light or through a band-pass filter.")
     anchors = [(int(x), int(y), float(t)) for x, y, t in anchors]
@@ -440,7 +456,6 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     report(0.05, "predicting the film's colours")
     lookup = lookup or build_lookup(stack, range_nm, step_nm, angle_deg)
     period = lookup.period_nm
-    colours = _Colours.of(rgb)
     saturated = colours.per_pixel(np.any(colours.rgb >= 0.995, axis=-1))
     dark = colours.per_pixel(colours.lab[:, 0] < 3.0)
     valid = ~(saturated | dark)
@@ -540,7 +555,7 @@ def _initial_camera(rgb, valid, lookup, reference, self_calibrate):
     if not self_calibrate:
         return CameraModel(), {"method": "none (camera taken as ideal)"}
     # Exposure guess: match the bright end of the photo to the bright end of the colour path.
-    lin = srgb_decode(rgb[valid])
+    lin = srgb_decode(rgb[valid][::max(1, int(valid.sum()) // 200_000)])  # a subsample is plenty
     observed = np.percentile(lin.mean(axis=1), 95)
     predicted = np.percentile(lookup.linear_rgb.mean(axis=1), 95)
     k = float(observed / predicted) if predicted > 0 else 1.0
@@ -556,26 +571,37 @@ def _refit_camera(camera, chosen, has, linear, lookup, full_matrix):
     if sel.size > 20000:
         sel = np.random.default_rng(0).choice(sel, 20000, replace=False)
     t = chosen.ravel()[sel]
+    bins, inverse, counts = np.unique(np.rint(t / 2), return_inverse=True, return_counts=True)  # 2 nm bins
+    # Each thickness bin counts once, so a large uniform area does not dominate the fit.
+    w = np.sqrt(1.0 / counts[inverse])[:, None]
     pred = np.stack([np.interp(t, lookup.thickness_nm, lookup.linear_rgb[:, i]) for i in range(3)], -1)
     obs = linear.reshape(-1, 3)[sel]
-    distinct = np.unique(np.rint(t / 2)).size  # distinct thicknesses at 2 nm
+    few = bins.size < 25 or np.ptp(t) < lookup.period_nm / 2
     spread = np.linalg.svd(pred - pred.mean(0), compute_uv=False)
-    rich = distinct >= 100 and spread[-1] > 0.02 * spread[0]
+    rich = bins.size >= 100 and spread[-1] > 0.02 * spread[0]
     use_full = rich if full_matrix is None else (full_matrix and rich)
-    gains = _fit_camera(pred, obs, False)
+    gains = _fit_camera(w * pred, w * obs, False)
+    note = {}
+    if few:
+        # A nearly uniform film shows too few colours to tell a colour cast from a thickness
+        # change: fit the exposure only (a reference region calibrates such photos fully).
+        gains = np.eye(3) * np.sum(w * pred * w * obs) / max(np.sum((w * pred) ** 2), 1e-12)
+        use_full = False
+        note = {"note": "few distinct colours: exposure fitted, no colour correction; give a reference region"}
     if use_full:
         # Ridge towards the gains: a full matrix only moves as far as the data demand.
-        lam = 0.01 * np.trace(pred.T @ pred) / 3
-        new = np.linalg.solve(pred.T @ pred + lam * np.eye(3), pred.T @ obs + lam * gains.T).T
+        P, O = w * pred, w * obs
+        lam = 0.01 * np.trace(P.T @ P) / 3
+        new = np.linalg.solve(P.T @ P + lam * np.eye(3), P.T @ O + lam * gains.T).T
     else:
         new = gains
     before = np.median(np.linalg.norm(lab_of_linear(np.clip(camera.apply(pred), 0, 1)) - lab_of_linear(obs), axis=1))
     after = np.median(np.linalg.norm(lab_of_linear(np.clip(pred @ new.T, 0, 1)) - lab_of_linear(obs), axis=1))
     if not after < before:
-        return camera, 0.0, {"full_matrix": False}
+        return camera, 0.0, {"full_matrix": False, **note}
     shift = float(np.median(delta_E_2000(lab_of_linear(np.clip(camera.apply(pred), 0, 1)),
                                          lab_of_linear(np.clip(pred @ new.T, 0, 1)))))
-    return CameraModel(new), shift, {"full_matrix": bool(use_full)}
+    return CameraModel(new), shift, {"full_matrix": bool(use_full), **note}
 
 
 def _statistics(thickness, flags, pixel_size_um):
