@@ -11,7 +11,7 @@ import pytest
 from filmcalc.errors import FilmcalcError
 from filmcalc.stack import loads_stack
 from filmcalc.synthetic import CameraSettings, dome, render_photo, steps, wedge
-from filmcalc.thickness import FLAGS, build_lookup, thickness_map
+from filmcalc.thickness import build_lookup, thickness_map
 
 OXIDE = loads_stack('name = "oxide"\n[ambient]\nmaterial = "air"\n[[layers]]\nmaterial = "fused-silica"\n'
                     'thickness_nm = 100\nunknown = true\n[substrate]\nmaterial = "silicon"\n[light]\nsource = "F2"\n')
