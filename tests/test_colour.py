@@ -183,3 +183,28 @@ def test_line_light_colours_and_lab():
 def srgb_decode_for_test(v):
     from filmcalc.colour import srgb_decode
     return srgb_decode(v)
+
+
+def test_user_light_and_camera_files(tmp_path):
+    from filmcalc.colour import load_camera_csv
+    # A user CSV light equal to D65 gives D65's white (the file route against the built-in table).
+    d65 = colour.SDS_ILLUMINANTS["D65"]
+    wl = np.arange(380.0, 781.0, 5.0)
+    light = tmp_path / "lamp.csv"
+    light.write_text("wavelength_nm,power\n" + "\n".join(f"{w:g},{d65[w]:.6f}" for w in wl))
+    assert colour_kernel(str(light)).white_xy == pytest.approx(colour_kernel("D65").white_xy, abs=1e-9)
+    bad = tmp_path / "bad.csv"
+    bad.write_text("wavelength_nm,power\n500,1\n400,1\n")
+    with pytest.raises(FilmcalcError, match="increasing"):
+        colour_kernel(str(bad))
+    # A camera file: header checked, sensitivities read, white balanced to (100, 100, 100).
+    cam = tmp_path / "cam.csv"
+    cam.write_text("wavelength_nm,red,green,blue\n" + "\n".join(
+        f"{w:g},{np.exp(-((w - 600) / 40) ** 2):.6f},{np.exp(-((w - 540) / 40) ** 2):.6f},"
+        f"{np.exp(-((w - 450) / 30) ** 2):.6f}" for w in wl))
+    k = camera_kernel(load_camera_csv(cam), "A")
+    assert reflectance_to_XYZ(np.ones(k.wavelength_nm.size), k) == pytest.approx([100, 100, 100])
+    wrong = tmp_path / "wrong.csv"
+    wrong.write_text("nm,r,g,b\n400,1,1,1\n500,1,1,1\n")
+    with pytest.raises(FilmcalcError, match="header"):
+        load_camera_csv(wrong)

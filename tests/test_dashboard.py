@@ -98,3 +98,12 @@ def test_photo_page_every_demo_photo():
         at.button(key="photo_run").click().run()
         assert not at.exception and not at.error, name
         assert any("mean thickness" in m.label for m in at.metric), name
+
+
+def test_colour_charts_swatch_from_chart():
+    at = run_page("colour_charts.py", timeout=120)
+    at.sidebar.selectbox[0].set_value("thermal oxide coupon on silicon").run()
+    at.number_input(key="match_swatch").set_value(120.0).run()
+    assert not at.exception and not at.error
+    table = at.dataframe[0].value
+    assert abs(table.iloc[0, 1] - 120) <= 1 and table.iloc[0, 2] < 0.01  # the swatch itself, ΔE ≈ 0

@@ -95,12 +95,20 @@ with tabs[5]:
     st.write("Type or pick the colour you see; every thickness within the tolerance is listed, best first, "
              "with its fringe order at 550 nm. Colours repeat at higher orders: use what else you know "
              "(neighbouring colours, a bare-substrate reference, the expected range) to choose.")
-    c1, c2, c3 = st.columns(3)
+    c1, c2, c3, c4 = st.columns(4)
     picked = c1.color_picker("Colour", "#5b6aa5", key="match_picker")
     typed = c2.text_input("…or type it", "", placeholder="#RRGGBB, srgb:R,G,B or lab:L,a,b", key="match_text")
-    tolerance = c3.slider("Tolerance ΔE00", 0.5, 15.0, 5.0, 0.5, key="match_tol")
+    swatch = c3.number_input("…or take the chart's swatch at (nm)", 0.0, float(t_max), value=None,
+                             placeholder="thickness", key="match_swatch",
+                             help="Which other thicknesses look like the chart's colour at this thickness?")
+    tolerance = c4.slider("Tolerance ΔE00", 0.5, 15.0, 5.0, 0.5, key="match_tol")
     try:
-        target = parse_colour(typed or picked, colours.white_XYZ)
+        if swatch is not None and not typed:
+            index = int(np.argmin(np.abs(one.thickness_nm - swatch)))
+            target = one.Lab[0, index]
+            st.caption(f"Swatch at {one.thickness_nm[index]:g} nm: {one.hex(cols=[index])[0, 0]}")
+        else:
+            target = parse_colour(typed or picked, colours.white_XYZ)
         found = match_colour(target, one, tolerance, stack)
     except FilmcalcError as exc:
         st.error(str(exc))
