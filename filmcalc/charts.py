@@ -121,7 +121,7 @@ def _image(colours, unit, rows):
 
 def _light_note(colours):
     note = (f"{colours.source}, {colours.observer}° observer, {colours.polarisation}, exposure "
-            f"{colours.exposure:g}×")
+            f"{colours.exposure:.3g}×")
     if colours.numerical_aperture:
         note += f", NA {colours.numerical_aperture:g}"
     if colours.monochromatic:
