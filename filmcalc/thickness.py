@@ -197,11 +197,23 @@ class _Colours:
         codes = (q[:, 0] << 16) | (q[:, 1] << 8) | q[:, 2]
         uniq, inverse = np.unique(codes, return_inverse=True)
         rgb = np.stack([(uniq >> 16) & 255, (uniq >> 8) & 255, uniq & 255], axis=1) / 255.0
-        return cls((H, W), inverse.astype(np.int64), rgb, lab_of_encoded(rgb))
+        return cls((H, W), inverse.astype(np.int32).reshape(H, W), rgb, lab_of_encoded(rgb))
 
     def per_pixel(self, values):
         """Spread per-colour values (U, ...) to the image (H, W, ...)."""
-        return np.asarray(values)[self.inverse].reshape(self.shape + np.shape(values)[1:])
+        return np.asarray(values)[self.inverse]
+
+    def block_mean_lab(self, step, shape):
+        """CIELAB averaged over step × step blocks, on a grid of the given (coarse) shape."""
+        hb, wb = shape
+        acc = np.zeros((hb, wb, 3))
+        count = np.zeros((hb, wb, 1))
+        for dy in range(step):
+            for dx in range(step):
+                part = self.inverse[dy::step, dx::step][:hb, :wb]
+                acc[:part.shape[0], :part.shape[1]] += self.lab[part]
+                count[:part.shape[0], :part.shape[1]] += 1
+        return acc / np.maximum(count, 1)
 
 
 def _refined_candidates(lab_obs, lab_lut, tolerance, max_candidates, coarse=4):
@@ -220,33 +232,59 @@ def _refined_candidates(lab_obs, lab_lut, tolerance, max_candidates, coarse=4):
     return np.take_along_axis(idx_f, order, axis=1), np.take_along_axis(dist_f, order, axis=1)
 
 
+@dataclasses.dataclass
+class _Candidates:
+    """Candidate thicknesses per distinct colour, and which row each pixel uses.
+
+    ``t`` and ``d`` have one row per colour plus a last row of +inf for
+    pixels that are not used (saturated, dark); nothing per pixel × candidate
+    is ever stored, which keeps a 24-megapixel photo within memory.
+    """
+
+    t: np.ndarray    # (U + 1, C) float32, thickness nm, +inf where none
+    d: np.ndarray    # (U + 1, C) float32, ΔE76, +inf where none
+    key: np.ndarray  # (H, W) int32
+
+    def at(self, rows, cols):
+        """(h, w, C) arrays for a sub-grid."""
+        k = self.key[rows, cols]
+        return self.t[k], self.d[k]
+
+    def has(self):
+        return np.isfinite(self.t[:, 0])[self.key]
+
+    def take(self, pick, which="t"):
+        """The picked candidate's thickness (or distance) per pixel."""
+        return (self.t if which == "t" else self.d)[self.key, pick]
+
+
 def _pixel_candidates(colours, usable, lookup, camera, tolerance, max_candidates):
-    """Candidates per pixel: thickness (H, W, C) and ΔE76 (H, W, C), +inf where none."""
+    """Candidates for every distinct colour of the photo (see :class:`_Candidates`)."""
     idx, dist = _refined_candidates(colours.lab, lookup.lab(camera), tolerance, max_candidates)
     # Missing candidates are +inf in both arrays, so no NaN needs handling downstream.
     t = np.where(idx >= 0, lookup.thickness_nm[np.maximum(idx, 0)], np.inf).astype(np.float32)
-    cand_t = colours.per_pixel(t)
-    cand_d = colours.per_pixel(dist.astype(np.float32))
-    cand_t[~usable] = np.inf
-    cand_d[~usable] = np.inf
-    return cand_t, cand_d
+    C = t.shape[1]
+    t = np.vstack([t, np.full((1, C), np.inf, np.float32)])
+    d = np.vstack([dist.astype(np.float32), np.full((1, C), np.inf, np.float32)])
+    key = np.where(usable, colours.inverse, t.shape[0] - 1).astype(np.int32)
+    return _Candidates(t, d, key)
 
 
-def _nearest_candidate(cand_t, cand_d, reference, colour_weight):
+def _nearest_candidate(cands, reference, colour_weight):
     """Index of the candidate nearest a reference thickness (colour distance as a tie-break).
 
     Missing candidates carry an infinite colour distance, so they never win.
     """
-    H, W, C = cand_t.shape
-    ct, cd = cand_t.reshape(-1, C), cand_d.reshape(-1, C)
+    key = cands.key.ravel()
     ref = reference.reshape(-1, 1).astype(np.float32)
-    pick = np.empty(H * W, dtype=np.int64)
+    pick = np.empty(key.size, dtype=np.int8)
     weight = np.float32(colour_weight)
-    for a in range(0, H * W, 65536):  # cache-sized blocks
-        cost = np.abs(ct[a:a + 65536] - ref[a:a + 65536])
-        cost += weight * cd[a:a + 65536]
+    for a in range(0, key.size, 65536):  # cache-sized blocks
+        k = key[a:a + 65536]
+        cost = np.abs(cands.t[k] - ref[a:a + 65536])
+        cost += weight * cands.d[k]
         pick[a:a + 65536] = np.argmin(cost, axis=-1)
-    return pick.reshape(H, W)
+    return pick.reshape(cands.key.shape)
 
 
 EDGE_DE = 12.0  # colour change between neighbours (ΔE76) taken as an edge of the film (a step)
@@ -360,38 +398,37 @@ def _blur_normalised(values, weights, sigma):
     return np.divide(num, den, out=np.full(values.shape, np.nan), where=den > 1e-12)
 
 
-def _resolve(cand_t, cand_d, valid, anchors, period_nm, lab, trend=None, coarse_max=96):
+def _resolve(cands, valid, anchors, period_nm, colours, trend=None, coarse_max=96):
     """Order resolution, coarse to fine (see the module docstring)."""
     from scipy.ndimage import zoom
 
-    H, W, C = cand_t.shape
+    H, W = cands.key.shape
     step = max(1, int(np.ceil(max(H, W) / coarse_max)))
-    ct, cd, cv = cand_t[::step, ::step], cand_d[::step, ::step], valid[::step, ::step]
+    ct, cd = cands.at(slice(None, None, step), slice(None, None, step))
+    cv = valid[::step, ::step]
     seeds = []
     for x, y, t in anchors:
         yy, xx = min(y // step, ct.shape[0] - 1), min(x // step, ct.shape[1] - 1)
         if np.any(np.isfinite(ct[yy, xx])):
-            j = int(np.nanargmin(np.where(np.isfinite(ct[yy, xx]), np.abs(ct[yy, xx] - t), np.inf)))
-            seeds.append((yy, xx, ct[yy, xx, j]))
+            j = int(np.argmin(np.abs(ct[yy, xx] - t)))
+            seeds.append((yy, xx, float(ct[yy, xx, j])))
     # Edges are judged on block means (noise averages out), candidates on the sampled pixels.
-    hb, wb = ct.shape[:2]
-    pad = np.pad(lab, ((0, hb * step - H), (0, wb * step - W), (0, 0)), mode="edge")
-    lab_blocks = pad.reshape(hb, step, wb, step, 3).mean(axis=(1, 3))
+    lab_blocks = colours.block_mean_lab(step, ct.shape[:2])
     coarse, region = _grow(ct, cd, seeds, period_nm, cv, lab_blocks, trend)
     # Fill unreached coarse cells so the upsampled reference is defined everywhere.
     filled = np.where(np.isnan(coarse), _blur_normalised(coarse, np.ones_like(coarse), 2.0), coarse)
     filled = np.where(np.isnan(filled), np.nanmean(coarse) if np.any(np.isfinite(coarse)) else 0.0, filled)
-    reference = zoom(filled, (H / filled.shape[0], W / filled.shape[1]), order=1, mode="nearest")[:H, :W]
-    pick = _nearest_candidate(cand_t, cand_d, reference, 1.0)
-    chosen = np.take_along_axis(cand_t, pick[..., None], axis=-1)[..., 0]
+    reference = zoom(filled.astype(np.float32), (H / filled.shape[0], W / filled.shape[1]), order=1,
+                     mode="nearest")[:H, :W]
+    pick = _nearest_candidate(cands, reference, 1.0)
+    chosen = cands.take(pick)
     # Second pass against a locally smoothed reference (weights favour good colour matches).
-    best_d = np.take_along_axis(cand_d, pick[..., None], axis=-1)[..., 0]
-    local = _blur_normalised(chosen, 1.0 / (1.0 + best_d), 3.0)
-    local = np.where(np.isfinite(local), local, reference)
-    pick = _nearest_candidate(cand_t, cand_d, local, 1.0)
-    chosen = np.take_along_axis(cand_t, pick[..., None], axis=-1)[..., 0]
-    region_full = np.repeat(np.repeat(region, step, axis=0), step, axis=1)[:H, :W]
-    return chosen, pick, local, region_full, len(seeds)
+    local = _blur_normalised(chosen, (1.0 / (1.0 + cands.take(pick, "d"))).astype(np.float32), 3.0)
+    local = np.where(np.isfinite(local), local, reference).astype(np.float32)
+    del reference
+    pick = _nearest_candidate(cands, local, 1.0)
+    region_full = np.repeat(np.repeat(region.astype(np.int32), step, axis=0), step, axis=1)[:H, :W]
+    return cands.take(pick), pick, local, region_full, len(seeds)
 
 
 def _fit_camera(pred_linear, obs_linear, full_matrix):
@@ -474,26 +511,24 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
         small_anchors = [(x // stride, y // stride, t) for x, y, t in anchors]
         for k in range(3):
             report(0.1 + 0.2 * k, f"calibrating the camera (pass {k + 1} of 3)")
-            ct, cd = _pixel_candidates(small_colours, small_valid, lookup, camera, tolerance, max_candidates)
-            has = np.isfinite(ct[..., 0])
+            small_cands = _pixel_candidates(small_colours, small_valid, lookup, camera, tolerance, max_candidates)
+            has = small_cands.has()
             if not has.any():
                 break
-            chosen = _resolve(ct, cd, has, small_anchors, period, small_colours.per_pixel(small_colours.lab),
-                              trend)[0]
+            chosen = _resolve(small_cands, has, small_anchors, period, small_colours, trend)[0]
             camera, shift, fitted = _refit_camera(camera, chosen, has, srgb_decode(small), lookup, full_matrix)
             shift_dE += shift
             calibration.update(fitted)
     report(0.7, "matching colours")
-    cand_t, cand_d = _pixel_candidates(colours, valid, lookup, camera, tolerance, max_candidates)
-    has = np.isfinite(cand_t[..., 0])
+    cands = _pixel_candidates(colours, valid, lookup, camera, tolerance, max_candidates)
+    has = cands.has()
     if not has.any():
         raise FilmcalcError(f"No pixel matches any colour of this stack between {range_nm[0]:g} and "
                             f"{range_nm[1]:g} nm: check the stack, the light, the exposure and the range.")
     report(0.8, "resolving fringe orders")
-    chosen, pick, local, region, n_seeds = _resolve(cand_t, cand_d, has, anchors, period,
-                                                    colours.per_pixel(colours.lab), trend)
+    chosen, pick, local, region, n_seeds = _resolve(cands, has, anchors, period, colours, trend)
     report(0.9, "uncertainty and flags")
-    best_d = np.take_along_axis(cand_d, pick[..., None], axis=-1)[..., 0]
+    best_d = cands.take(pick, "d")
     ok = has & np.isfinite(chosen)
     thickness = np.where(ok, chosen, np.nan)
     # Uncertainty: colour noise over the local slope of the colour path.
@@ -502,16 +537,16 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     noise = float(1.4826 * np.median(best_d[ok]))
     lut_index = np.clip(np.rint((np.nan_to_num(thickness) - lookup.thickness_nm[0]) /
                                 (lookup.thickness_nm[1] - lookup.thickness_nm[0])), 0,
-                        lookup.thickness_nm.size - 1).astype(np.int64)
+                        lookup.thickness_nm.size - 1).astype(np.int32)
     sigma = np.where(ok, np.maximum(noise, best_d) / np.maximum(slope[lut_index], 1e-3), np.nan)
     sigma = np.minimum(sigma, period / 2)
     # Colour residual ΔE00, computed once per (colour, thickness) pair.
-    pairs = colours.inverse * lookup.thickness_nm.size + lut_index.ravel()
+    pairs = colours.inverse.ravel().astype(np.int64) * lookup.thickness_nm.size + lut_index.ravel()
     upairs, pair_inverse = np.unique(pairs, return_inverse=True)
     res = delta_E_2000(colours.lab[upairs // lookup.thickness_nm.size], lab_lut[upairs % lookup.thickness_nm.size])
     residual = np.where(ok, res[pair_inverse].reshape(H, W), np.nan)
-    second = np.where(pick == 0, cand_d[..., 1], cand_d[..., 0])
-    other_t = np.where(pick == 0, cand_t[..., 1], cand_t[..., 0])
+    other = np.where(pick == 0, 1, 0).astype(np.int8)
+    second, other_t = cands.take(other, "d"), cands.take(other)
     flags = np.zeros((H, W), dtype=np.uint8)
     flags[saturated] |= FLAGS["saturated"]
     flags[dark] |= FLAGS["dark"]
