@@ -115,16 +115,20 @@ def main():
             t0 = time.perf_counter()
             base = score(naive(photo, lookup), truth)
             rows.append((name, cam_name, ours, base, seconds))
-            know = f"range {rng[0]:g}–{rng[1]:g} nm" + (f", {len(anchors)} anchor" if anchors else "") + \
+            washout = result.calibration.get("washout_nm")
+            know = (f"colours wash out from {washout:.0f} nm; " if washout is not None else "") + \
+                f"range {rng[0]:g}–{rng[1]:g} nm" + (f", {len(anchors)} anchor" if anchors else "") + \
                    (f", thicker to the {trend}" if trend else "") + (", bare-substrate reference" if reference else "")
             print(f"{name:32s} {cam_name:11s} | {ours['rmse']:10.2f} {ours['median']:7.2f} "
                   f"{100 * ours['wrong']:7.2f} {100 * ours['coverage']:7.1f} {seconds:6.2f}s | "
                   f"{base['rmse']:10.1f} {base['median']:7.1f} {100 * base['wrong']:7.1f} | {know}")
     wrong = np.array([r[2]["wrong"] for r in rows])
     rmse = np.array([r[2]["rmse"] for r in rows])
+    cover = np.array([r[2]["coverage"] for r in rows])
     naive_wrong = np.array([r[3]["wrong"] for r in rows])
-    print(f"\nfilmcalc: wrong order {100 * wrong.mean():.2f} % on average, worst case {100 * wrong.max():.2f} %; "
-          f"RMSE median {np.median(rmse):.1f} nm, worst {rmse.max():.1f} nm")
+    print(f"\nfilmcalc: wrong order {100 * np.nanmean(wrong):.2f} % on average over covered pixels, worst case "
+          f"{100 * np.nanmax(wrong):.2f} %; RMSE median {np.nanmedian(rmse):.1f} nm, worst {np.nanmax(rmse):.1f} nm; "
+          f"coverage {100 * cover.mean():.1f} % on average, lowest {100 * cover.min():.1f} %")
     print(f"naive baseline: wrong order {100 * naive_wrong.mean():.1f} % on average, worst {100 * naive_wrong.max():.1f} %")
     # Throughput on a larger photo (a smooth oxide dome).
     ox = load_stack(DEMO / "oxide-coupon.toml")

@@ -58,7 +58,13 @@ from .errors import FilmcalcError
 __all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS", "TRENDS",
            "lab_of_encoded"]
 
-FLAGS = {"saturated": 1, "dark": 2, "no_match": 4, "ambiguous": 8, "unanchored": 16, "inconsistent": 32}
+FLAGS = {"saturated": 1, "dark": 2, "no_match": 4, "ambiguous": 8, "unanchored": 16, "inconsistent": 32,
+         "washed_out": 64}
+
+# Colours "wash out" where, over one fringe period, the colour path stays within this distance
+# (ΔE76) of its local mean: a few times the colour noise of a good 8-bit photo (our choice;
+# common practice, no source).
+WASHOUT_DE = 5.0
 
 _D65_XYZ = _xy_to_XYZ(_D65_XY) * 100
 _SRGB_TO_XYZ = None
@@ -535,6 +541,7 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     lab_lut = lookup.lab(camera)
     slope = np.linalg.norm(np.gradient(lab_lut, lookup.thickness_nm, axis=0), axis=1)  # ΔE per nm
     noise = float(1.4826 * np.median(best_d[ok]))
+    washout_nm = _washout_thickness(stack, lookup, camera, angle_deg)
     lut_index = np.clip(np.rint((np.nan_to_num(thickness) - lookup.thickness_nm[0]) /
                                 (lookup.thickness_nm[1] - lookup.thickness_nm[0])), 0,
                         lookup.thickness_nm.size - 1).astype(np.int32)
@@ -555,6 +562,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
         (np.abs(thickness - local) > period / 4)
     flags[ambiguous] |= FLAGS["ambiguous"]
     flags[ok & (np.abs(thickness - local) > period / 3)] |= FLAGS["inconsistent"]
+    if washout_nm is not None:
+        flags[ok & (thickness >= washout_nm)] |= FLAGS["washed_out"]
     if anchors:
         anchored_regions = {int(region[y, x]) for x, y, _ in anchors}
         flags[ok & ~np.isin(region, list(anchored_regions))] |= FLAGS["unanchored"]
@@ -562,6 +571,7 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     stats = _statistics(thickness, flags, pixel_size_um)
     calibration.update({"matrix": camera.matrix.round(5).tolist(), "gains": camera.gains.round(5).tolist(),
                         "colour_shift_dE00": round(shift_dE, 3), "colour_noise_dE76": round(noise, 3),
+                        "washout_nm": washout_nm,
                         "unique_colours": int(colours.rgb.shape[0]), "seeds": n_seeds})
     warnings = []
     if stats["flagged_fraction"] > 0.2:
@@ -637,6 +647,30 @@ def _refit_camera(camera, chosen, has, linear, lookup, full_matrix):
     shift = float(np.median(delta_E_2000(lab_of_linear(np.clip(camera.apply(pred), 0, 1)),
                                          lab_of_linear(np.clip(pred @ new.T, 0, 1)))))
     return CameraModel(new), shift, {"full_matrix": bool(use_full), **note}
+
+
+def _washout_thickness(stack, lookup, camera, angle_deg=None):
+    """Thickness from which white-light colours no longer vary enough to read (None if beyond the range).
+
+    The colour path, from 0 nm to one period past the user's range, is
+    compared with its running mean over one fringe period: where its
+    excursion stays below ``WASHOUT_DE``, neighbouring orders look alike and
+    pixels there are flagged instead of guessed.
+    """
+    from scipy.ndimage import maximum_filter1d, uniform_filter1d
+
+    top = float(lookup.thickness_nm[-1]) + lookup.period_nm
+    wide = lookup if lookup.thickness_nm[0] == 0 and lookup.thickness_nm[-1] >= top else \
+        build_lookup(stack, (0.0, top), 0.5, angle_deg)
+    lab = wide.lab(camera)
+    n = max(3, int(round(wide.period_nm / (wide.thickness_nm[1] - wide.thickness_nm[0]))))
+    amplitude = maximum_filter1d(np.linalg.norm(lab - uniform_filter1d(lab, n, axis=0, mode="nearest"), axis=1),
+                                 n, mode="nearest")
+    readable = np.flatnonzero(amplitude >= WASHOUT_DE)
+    if readable.size == 0:
+        return 0.0
+    limit = float(wide.thickness_nm[min(readable[-1] + 1, wide.thickness_nm.size - 1)])
+    return None if limit > lookup.thickness_nm[-1] else limit
 
 
 def _statistics(thickness, flags, pixel_size_um):

@@ -122,3 +122,17 @@ def test_bad_anchor_and_reference(lookup):
         thickness_map(photo, OXIDE, anchors=[(5, 5, 5000.0)], lookup=lookup)
     with pytest.raises(FilmcalcError, match="Reference rectangle"):
         thickness_map(photo, OXIDE, reference=(0, 0, 999, 5, 0.0), lookup=lookup)
+
+
+def test_washed_out_colours_are_flagged_not_guessed():
+    # Thick resist loses its colours past about 1.1–1.2 µm in white light: pixels there are
+    # flagged (the limit is reported), and a thin part of the same photo is not.
+    resist = loads_stack('[ambient]\nmaterial = "air"\n[[layers]]\nmaterial = "photoresist"\nthickness_nm = 1\n'
+                         'unknown = true\n[substrate]\nmaterial = "silicon"\n[light]\nsource = "D65"\n')
+    truth = wedge(SHAPE, 300, 2500)
+    result = thickness_map(render_photo(resist, truth), resist, (0.0, 3000.0), anchors=[(0, 45, 300.0)])
+    limit = result.calibration["washout_nm"]
+    assert limit is not None and 900 < limit < 1600
+    washed = result.flag_mask("washed_out")
+    assert washed[truth > limit + 200].mean() > 0.9
+    assert not washed[truth < limit - 300].any()

@@ -152,7 +152,8 @@ with tabs[3]:
                                "no_match": "no film colour within the tolerance",
                                "ambiguous": "another fringe order fits about as well",
                                "unanchored": "a region no anchor ties to",
-                               "inconsistent": "disagrees with its neighbours by over a third of an order"}[k]}
+                               "inconsistent": "disagrees with its neighbours by over a third of an order",
+                               "washed_out": "past the thickness where white-light colours wash out"}[k]}
                   for k, v in FLAGS.items()], hide_index=True, width="stretch")
     st.plotly_chart(map_figure(result.flags.astype(float), "flags (bit values)", "flags", "Greys", pixel_size_um=scale),
                     width="stretch")
