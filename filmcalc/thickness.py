@@ -249,6 +249,7 @@ class _Candidates:
 
     t: np.ndarray    # (U + 1, C) float32, thickness nm, +inf where none
     d: np.ndarray    # (U + 1, C) float32, ΔE76, +inf where none
+    i: np.ndarray    # (U + 1, C) int32, index into the lookup, 0 where none
     key: np.ndarray  # (H, W) int32
 
     def at(self, rows, cols):
@@ -272,8 +273,9 @@ def _pixel_candidates(colours, usable, lookup, camera, tolerance, max_candidates
     C = t.shape[1]
     t = np.vstack([t, np.full((1, C), np.inf, np.float32)])
     d = np.vstack([dist.astype(np.float32), np.full((1, C), np.inf, np.float32)])
+    i = np.vstack([np.maximum(idx, 0), np.zeros((1, C), np.int64)]).astype(np.int32)
     key = np.where(usable, colours.inverse, t.shape[0] - 1).astype(np.int32)
-    return _Candidates(t, d, key)
+    return _Candidates(t, d, i, key)
 
 
 def _nearest_candidate(cands, reference, colour_weight):
@@ -521,7 +523,7 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
             has = small_cands.has()
             if not has.any():
                 break
-            chosen = _resolve(small_cands, has, small_anchors, period, small_colours, trend)[0]
+            chosen = _resolve(small_cands, has, small_anchors, period, small_colours, trend, coarse_max=64)[0]
             camera, shift, fitted = _refit_camera(camera, chosen, has, srgb_decode(small), lookup, full_matrix)
             shift_dE += shift
             calibration.update(fitted)
@@ -542,16 +544,13 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     slope = np.linalg.norm(np.gradient(lab_lut, lookup.thickness_nm, axis=0), axis=1)  # ΔE per nm
     noise = float(1.4826 * np.median(best_d[ok]))
     washout_nm = _washout_thickness(stack, lookup, camera, angle_deg)
-    lut_index = np.clip(np.rint((np.nan_to_num(thickness) - lookup.thickness_nm[0]) /
-                                (lookup.thickness_nm[1] - lookup.thickness_nm[0])), 0,
-                        lookup.thickness_nm.size - 1).astype(np.int32)
+    lut_index = cands.i[cands.key, pick]
     sigma = np.where(ok, np.maximum(noise, best_d) / np.maximum(slope[lut_index], 1e-3), np.nan)
     sigma = np.minimum(sigma, period / 2)
-    # Colour residual ΔE00, computed once per (colour, thickness) pair.
-    pairs = colours.inverse.ravel().astype(np.int64) * lookup.thickness_nm.size + lut_index.ravel()
-    upairs, pair_inverse = np.unique(pairs, return_inverse=True)
-    res = delta_E_2000(colours.lab[upairs // lookup.thickness_nm.size], lab_lut[upairs % lookup.thickness_nm.size])
-    residual = np.where(ok, res[pair_inverse].reshape(H, W), np.nan)
+    # Colour residual ΔE00, computed once per (colour, candidate) and then looked up per pixel.
+    lab_u = np.vstack([colours.lab, np.zeros((1, 3))])
+    table = delta_E_2000(lab_u[:, None, :], lab_lut[cands.i]).astype(np.float32)
+    residual = np.where(ok, table[cands.key, pick], np.nan)
     other = np.where(pick == 0, 1, 0).astype(np.int8)
     second, other_t = cands.take(other, "d"), cands.take(other)
     flags = np.zeros((H, W), dtype=np.uint8)
