@@ -55,11 +55,25 @@ from .appearance import film_colours, fringe_order
 from .colour import XYZ_to_Lab, _adaptation_matrix, _xy_to_XYZ, _D65_XY, delta_E_2000, srgb_decode, srgb_encode
 from .errors import FilmcalcError
 
-__all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS", "TRENDS",
+__all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS", "FLAG_MEANINGS",
+           "TRENDS",
            "lab_of_encoded"]
 
 FLAGS = {"saturated": 1, "dark": 2, "no_match": 4, "ambiguous": 8, "unanchored": 16, "inconsistent": 32,
-         "washed_out": 64}
+         "washed_out": 64, "poor_fit": 128}
+
+FLAG_MEANINGS = {
+    "saturated": "a channel at its maximum", "dark": "too little light",
+    "no_match": "no film colour within the tolerance", "ambiguous": "another fringe order fits about as well",
+    "unanchored": "a region no anchor ties to",
+    "inconsistent": "disagrees with its neighbours by over a third of an order",
+    "washed_out": "past the thickness where white-light colours wash out",
+    "poor_fit": "its colour fits the model much worse than the rest of the photo",
+}
+
+# A pixel whose colour residual (ΔE00) exceeds this many times the map's median residual, and
+# at least POOR_FIT_MIN_DE, fits the model badly: its thickness is flagged (our choice).
+POOR_FIT_FACTOR, POOR_FIT_MIN_DE = 3.0, 3.0
 
 # Colours "wash out" where, over one fringe period, the colour path stays within this distance
 # (ΔE76) of its local mean: a few times the colour noise of a good 8-bit photo (our choice;
@@ -563,6 +577,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     flags[ok & (np.abs(thickness - local) > period / 3)] |= FLAGS["inconsistent"]
     if washout_nm is not None:
         flags[ok & (thickness >= washout_nm)] |= FLAGS["washed_out"]
+    typical_residual = float(np.nanmedian(residual[ok])) if ok.any() else 0.0
+    flags[ok & (residual > max(POOR_FIT_MIN_DE, POOR_FIT_FACTOR * typical_residual))] |= FLAGS["poor_fit"]
     if anchors:
         anchored_regions = {int(region[y, x]) for x, y, _ in anchors}
         flags[ok & ~np.isin(region, list(anchored_regions))] |= FLAGS["unanchored"]

@@ -11,7 +11,7 @@ import streamlit as st
 from filmcalc import io as fio
 from filmcalc.charts import calibration_figure, map_figure
 from filmcalc.errors import FilmcalcError
-from filmcalc.thickness import FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded, thickness_map
+from filmcalc.thickness import FLAG_MEANINGS, FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded, thickness_map
 from filmcalc.ui.common import DEMO_DIR, cautions_box, demo_stacks, load_or_stop, stack_picker
 
 PHOTO_DIR = DEMO_DIR / "photos"
@@ -147,13 +147,7 @@ with tabs[2]:
                     width="stretch")
 with tabs[3]:
     st.write("Flagged pixels get no thickness, or one to treat with care:")
-    st.dataframe([{"flag": k, "pixels": int(np.count_nonzero(result.flags & v)),
-                   "meaning": {"saturated": "a channel at its maximum", "dark": "too little light",
-                               "no_match": "no film colour within the tolerance",
-                               "ambiguous": "another fringe order fits about as well",
-                               "unanchored": "a region no anchor ties to",
-                               "inconsistent": "disagrees with its neighbours by over a third of an order",
-                               "washed_out": "past the thickness where white-light colours wash out"}[k]}
+    st.dataframe([{"flag": k, "pixels": int(np.count_nonzero(result.flags & v)), "meaning": FLAG_MEANINGS[k]}
                   for k, v in FLAGS.items()], hide_index=True, width="stretch")
     st.plotly_chart(map_figure(result.flags.astype(float), "flags (bit values)", "flags", "Greys", pixel_size_um=scale),
                     width="stretch")
