@@ -11,31 +11,40 @@ CameraModel
 thickness_map, ThicknessMap
     The whole inversion: calibration, candidates across fringe orders, order
     resolution, uncertainty, flags and statistics.
-FLAGS
-    Bit values of the per-pixel flags.
+FLAGS, FLAG_MEANINGS
+    Bit values of the per-pixel flags, and what each means.
 
 Method
 ------
 1. Every pixel's colour and every predicted colour are compared in CIELAB
-   (D65 white; the prediction is clipped to the sRGB cube and encoded first,
-   as a camera would). Candidates are the local minima of the colour
-   distance along the thickness path below a tolerance, one per fringe
-   order. Unique 8-bit colours are searched instead of pixels.
+   (D65 white; the prediction is corrected, clipped to the sRGB cube and
+   encoded first, as a camera would). Candidates are the local minima of the
+   colour distance along the thickness path below a tolerance, one per
+   fringe order, found on a 2 nm lookup and refined on the 0.5 nm one. Each
+   distinct 8-bit colour is searched once, and candidates are kept per
+   colour, never per pixel (a 24-megapixel photo stays within memory).
 2. Orders are resolved coarse to fine, as in quality-guided phase
-   unwrapping: on a downsampled copy (≤ 160 px a side) assignment grows from
-   the user's anchors or, without them, from the most confident pixels
-   (a single close candidate), always to the neighbour whose best candidate
-   is nearest in thickness. The result, upsampled, is the reference each
+   unwrapping: on a downsampled grid (≤ 96 cells a side) assignment grows
+   from the user's anchors or, without them, from the least ambiguous
+   colours, each step taking the candidate nearest the thickness predicted
+   by continuing the local slope. Across an edge (a jump in colour well above
+   the photo's usual neighbour-to-neighbour change) the colour decides
+   instead, and an optional trend (where the film gets thicker) penalises
+   thinning against it. The result, upsampled, is the reference each
    full-resolution pixel picks its nearest candidate against; a second pass
    against a locally smoothed reference (σ = 3 px) cleans up. Values are
    never smoothed, so steps stay sharp.
 3. Calibration: a reference region of known thickness (e.g. bare substrate at
-   0 nm) gives the per-channel gains; without one, the camera correction is
-   fitted jointly with the thickness assignment (alternating), a full 3 × 3
-   matrix when the photo's colours span enough of colour space, otherwise
-   gains only.
+   0 nm) gives the per-channel gains. Without one, the camera correction is
+   fitted jointly with the map on a subsample (three alternating passes):
+   a 3 × 3 matrix, ridge-regularised towards the gains, when the photo's
+   colours span enough of colour space; gains otherwise; exposure only when
+   the photo shows few colours. Each thickness counts once in the fit.
 4. Uncertainty (1σ): colour noise (robust spread of the residuals) divided
    by the local slope of the colour path, |dLab/dd|.
+5. Flags instead of guesses: saturated, dark, no match, ambiguous,
+   unanchored region, inconsistent with neighbours, past the thickness where
+   white-light colours wash out (reported), and a poor colour fit.
 
 References
 ----------
@@ -56,8 +65,7 @@ from .colour import XYZ_to_Lab, _adaptation_matrix, _xy_to_XYZ, _D65_XY, delta_E
 from .errors import FilmcalcError
 
 __all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS", "FLAG_MEANINGS",
-           "TRENDS",
-           "lab_of_encoded"]
+           "TRENDS", "lab_of_encoded"]
 
 FLAGS = {"saturated": 1, "dark": 2, "no_match": 4, "ambiguous": 8, "unanchored": 16, "inconsistent": 32,
          "washed_out": 64, "poor_fit": 128}
