@@ -214,7 +214,7 @@ def film_colours(stack, thickness_nm, angle_deg=None, *, observer="2", exposure=
         raise FilmcalcError(f"Stack {stack.name!r} marks no layer as unknown = true.")
     if not np.isfinite(exposure) or exposure <= 0:
         raise FilmcalcError(f"Exposure must be a number > 0 (got {exposure}).")
-    base_dir = None if stack.source_path is None else stack.source_path.parent
+    base_dir = stack.base_dir
     dz = np.atleast_1d(np.asarray(thickness_nm, dtype=float))
     if wavelength_nm is None:
         wavelength_nm = _colour_grid(stack, dz)

@@ -547,7 +547,7 @@ class Reflectance:
         """R for ``"s"``, ``"p"`` or ``"unpolarised"``."""
         if polarisation not in ("s", "p", "unpolarised"):
             raise FilmcalcError(f"polarisation must be s, p or unpolarised (got {polarisation!r}).")
-        return {"s": self.R_s, "p": self.R_p}.get(polarisation, self.R)
+        return self.R_s if polarisation == "s" else self.R_p if polarisation == "p" else self.R
 
 
 def stack_indices(stack, wavelength_nm):

@@ -107,7 +107,7 @@ class Stack:
     layers: list[Layer]
     substrate: Material
     light: Light = dataclasses.field(default_factory=Light)
-    source_path: Path | None = None
+    base_dir: Path | None = None  # folder that relative paths in the file (CSV tables, lights) resolve against
 
     @property
     def film_index(self):
@@ -230,7 +230,8 @@ def stack_from_dict(data, base_dir=None):
     _unknown_keys(raw_light, _LIGHT_KEYS, "[light]")
     light = Light(**{k: (float(v) if k in ("angle_deg", "numerical_aperture") and isinstance(v, int)
                          and not isinstance(v, bool) else v) for k, v in raw_light.items()})
-    return Stack(name, ambient, layers, substrate, _validate_light(light))
+    return Stack(name, ambient, layers, substrate, _validate_light(light),
+                 None if base_dir is None else Path(base_dir))
 
 
 def loads_stack(text, base_dir=None):
@@ -259,7 +260,6 @@ def load_stack(path):
         stack = loads_stack(text, base_dir=path.parent)
     except FilmcalcError as exc:
         raise FilmcalcError(f"{path.name}: {exc}") from None
-    stack.source_path = path
     return stack
 
 

@@ -150,7 +150,7 @@ def measured_camera_lookup(stack, range_nm, camera_name="Nikon 5100 (NPL)", chec
     """
     import warnings
 
-    from .appearance import film_colours
+    from .appearance import fringe_order
     from .colour import _adaptation_matrix, _cs, camera_kernel, CameraResponse, colour_kernel, reflectance_to_XYZ
     from .optics import reflectance_sweep
     from .thickness import ColourLookup
@@ -170,7 +170,5 @@ def measured_camera_lookup(stack, range_nm, camera_name="Nikon 5100 (NPL)", chec
     thickness = np.arange(range_nm[0], range_nm[1] + step_nm / 2, step_nm)
     R = reflectance_sweep(stack, wl, thickness).R[0]
     linear = (reflectance_to_XYZ(R, cam) / 100.0) @ ccm
-    reference = film_colours(stack, thickness[:1])  # for the period and orders, as build_lookup does
-    from .appearance import fringe_order
-    orders = fringe_order(stack, np.append(thickness, 1.0), reference.angle_deg[0])
+    orders = fringe_order(stack, np.append(thickness, 1.0), stack.light.angle_deg)
     return ColourLookup(thickness, linear, np.floor(orders[:-1]).astype(int) + 1, float(1 / orders[-1])), ccm.T

@@ -61,7 +61,8 @@ import time
 import numpy as np
 
 from .appearance import film_colours, fringe_order
-from .colour import XYZ_to_Lab, _adaptation_matrix, _xy_to_XYZ, _D65_XY, delta_E_2000, srgb_decode, srgb_encode
+from .colour import (_D65_XY, _XYZ_TO_SRGB, XYZ_to_Lab, _adaptation_matrix, _xy_to_XYZ, delta_E_2000, srgb_decode,
+                     srgb_encode)
 from .errors import FilmcalcError
 
 __all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS", "FLAG_MEANINGS",
@@ -89,19 +90,12 @@ POOR_FIT_FACTOR, POOR_FIT_MIN_DE = 3.0, 3.0
 WASHOUT_DE = 5.0
 
 _D65_XYZ = _xy_to_XYZ(_D65_XY) * 100
-_SRGB_TO_XYZ = None
-
-
-def _srgb_to_xyz_matrix():
-    global _SRGB_TO_XYZ
-    if _SRGB_TO_XYZ is None:
-        _SRGB_TO_XYZ = np.linalg.inv(_adaptation_matrix(_D65_XYZ))
-    return _SRGB_TO_XYZ
+_SRGB_TO_XYZ = np.linalg.inv(_XYZ_TO_SRGB)  # linear sRGB → XYZ (Y = 1), D65 white
 
 
 def lab_of_linear(linear_rgb):
     """CIELAB (D65 white) of linear sRGB values (..., 3)."""
-    return XYZ_to_Lab(100 * np.asarray(linear_rgb, dtype=float) @ _srgb_to_xyz_matrix().T, _D65_XYZ)
+    return XYZ_to_Lab(100 * np.asarray(linear_rgb, dtype=float) @ _SRGB_TO_XYZ.T, _D65_XYZ)
 
 
 def lab_of_encoded(encoded_rgb):
@@ -461,11 +455,8 @@ def _resolve(cands, valid, anchors, period_nm, colours, trend=None, coarse_max=9
     return cands.take(pick), pick, local, region_full, len(seeds)
 
 
-def _fit_camera(pred_linear, obs_linear, full_matrix):
-    """Least-squares camera correction obs ≈ M @ pred (full 3 × 3 or diagonal gains)."""
-    if full_matrix:
-        M, *_ = np.linalg.lstsq(pred_linear, obs_linear, rcond=None)
-        return M.T
+def _fit_gains(pred_linear, obs_linear):
+    """Least-squares per-channel gains: obs ≈ diag(g) @ pred."""
     g = np.sum(pred_linear * obs_linear, axis=0) / np.maximum(np.sum(pred_linear**2, axis=0), 1e-12)
     return np.diag(g)
 
@@ -648,7 +639,7 @@ def _refit_camera(camera, chosen, has, linear, lookup, full_matrix):
     spread = np.linalg.svd(pred - pred.mean(0), compute_uv=False)
     rich = bins.size >= 100 and spread[-1] > 0.02 * spread[0]
     use_full = rich if full_matrix is None else (full_matrix and rich)
-    gains = _fit_camera(w * pred, w * obs, False)
+    gains = _fit_gains(w * pred, w * obs)
     note = {}
     if few:
         # A nearly uniform film shows too few colours to tell a colour cast from a thickness

@@ -8,7 +8,6 @@ import numpy as np
 import streamlit as st
 
 from filmcalc.appearance import film_colours
-from filmcalc.colour import XYZ_to_srgb, colour_kernel, reflectance_to_XYZ, srgb_to_hex
 from filmcalc.errors import FilmcalcError
 from filmcalc.optics import reflectance_sweep, stack_reflectance
 from filmcalc.stack import load_stack, loads_stack
@@ -105,13 +104,10 @@ def spectrum_and_colour(text, base_dir, thickness_nm, angle_deg, polarisation="u
     stack = loads_stack(text, base_dir=base_dir)
     wl = np.arange(380.0, 781.0, 1.0)
     spec = stack_reflectance(stack, wl, thickness_nm, angle_deg)
-    kernel = colour_kernel(stack.light.source, base_dir=base_dir)
-    on_kernel = stack_reflectance(stack, kernel.wavelength_nm, thickness_nm, angle_deg)
-    XYZ = reflectance_to_XYZ(on_kernel.reflectance(polarisation), kernel, exposure)
-    srgb, out_of_gamut = XYZ_to_srgb(XYZ, kernel.white_XYZ)
+    colours = film_colours(stack, [thickness_nm], [angle_deg], exposure=exposure, polarisation=polarisation)
     return {
-        "spectrum": spec, "warnings": spec.warnings, "XYZ": XYZ, "hex": srgb_to_hex(srgb), "out_of_gamut": bool(out_of_gamut),
-        "monochromatic": kernel.monochromatic,
+        "spectrum": spec, "warnings": spec.warnings, "XYZ": colours.XYZ[0, 0], "hex": str(colours.hex()[0, 0]),
+        "out_of_gamut": bool(colours.out_of_gamut[0, 0]), "monochromatic": colours.monochromatic,
     }
 
 
