@@ -27,7 +27,9 @@ Method
    unwrapping: on a downsampled grid (≤ 96 cells a side) assignment grows
    from the user's anchors or, without them, from the least ambiguous
    colours, each step taking the candidate nearest the thickness predicted
-   by continuing the local slope. Across an edge (a jump in colour well above
+   by continuing the local slope (over up to three cells behind). Where no
+   candidate continues the film (none within a third of a period), the
+   pixel is left to another path or starts a region of its own. Across an edge (a jump in colour well above
    the photo's usual neighbour-to-neighbour change) the colour decides
    instead, and an optional trend (where the film gets thicker) penalises
    thinning against it. The result, upsampled, is the reference each
@@ -35,16 +37,20 @@ Method
    against a locally smoothed reference (σ = 3 px) cleans up. Values are
    never smoothed, so steps stay sharp.
 3. Calibration: a reference region of known thickness (e.g. bare substrate at
-   0 nm) gives the per-channel gains. Without one, the camera correction is
+   0 nm) gives the per-channel gains; so do the pixels around anchors, as a
+   start. Without a reference region, the camera correction is
    fitted jointly with the map on a subsample (three alternating passes):
    a 3 × 3 matrix, ridge-regularised towards the gains, when the photo's
    colours span enough of colour space; gains otherwise; exposure only when
    the photo shows few colours. Each thickness counts once in the fit.
 4. Uncertainty (1σ): colour noise (robust spread of the residuals) divided
    by the local slope of the colour path, |dLab/dd|.
-5. Flags instead of guesses: saturated, dark, no match, ambiguous,
-   unanchored region, inconsistent with neighbours, past the thickness where
-   white-light colours wash out (reported), and a poor colour fit.
+5. Flags instead of guesses: saturated, dark, no match, ambiguous (another
+   order fits about as well, or clearly better), a region no anchor ties to
+   (without anchors: every region but the largest), inconsistent with
+   neighbours, past the thickness where colours wash out for this photo
+   (the colour path's excursion below 5 ΔE or below 5 × the model's misfit
+   there; reported), and a poor colour fit.
 
 References
 ----------
@@ -88,6 +94,8 @@ POOR_FIT_FACTOR, POOR_FIT_MIN_DE = 3.0, 3.0
 # (ΔE76) of its local mean: a few times the colour noise of a good 8-bit photo (our choice;
 # common practice, no source).
 WASHOUT_DE = 5.0
+# ... and where it stays within this many times the photo's colour misfit at that thickness (our choice).
+WASHOUT_MISFIT = 5.0
 
 _D65_XYZ = _xy_to_XYZ(_D65_XY) * 100
 _SRGB_TO_XYZ = np.linalg.inv(_XYZ_TO_SRGB)  # linear sRGB → XYZ (Y = 1), D65 white
@@ -312,6 +320,10 @@ def _nearest_candidate(cands, reference, colour_weight):
 
 
 EDGE_DE = 12.0  # colour change between neighbours (ΔE76) taken as an edge of the film (a step)
+# On a smooth film, no candidate within this fraction of a fringe period of the thickness continued
+# from a neighbour means the colours do not continue the film there (our choice).
+BREAK_FRACTION = 1 / 3
+SLOPE_CELLS = 3  # cells behind a pixel over which the local slope is taken (our choice)
 
 
 TRENDS = {"right": (0, 1), "left": (0, -1), "down": (1, 0), "up": (-1, 0)}
@@ -330,6 +342,7 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
     candidates that would make the film thinner in that direction.
     """
     ty, tx = TRENDS[trend] if trend else (0, 0)
+    break_nm = BREAK_FRACTION * period_nm
     # At an edge, candidates within the photo's colour noise of the best one stay in the running.
     best_match = cand_d[..., 0][valid & np.isfinite(cand_d[..., 0])]
     noise_margin = max(2.0, 3.0 * float(np.median(best_match))) if best_match.size else 2.0
@@ -349,7 +362,6 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
     cd = np.where(keep, cand_d, 1e9).tolist()
     ok = (valid & np.isfinite(cand_t[..., 0])).tolist()
     chosen = [[None] * W for _ in range(H)]
-    parent = [[None] * W for _ in range(H)]  # the neighbour a pixel was reached from
     region = np.full((H, W), -1, dtype=np.int64)
     heap = []
     for rid, (y, x, t) in enumerate(seeds):
@@ -374,25 +386,35 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
                 if 0 <= yy < H and 0 <= xx < W and ok[yy][xx] and chosen[yy][xx] is None:
                     across_edge = edge[y][x][k]
                     floor = min(cd[yy][xx]) + noise_margin if across_edge else 1e18
-                    # Predict by continuing the local slope (from the parent through this pixel),
-                    # which keeps steep but smooth films on the right branch of the colour path.
-                    p = parent[y][x]
-                    predicted = t0 if p is None or (p[0] - y, p[1] - x) != (y - yy, x - xx) else \
-                        2 * t0 - chosen[p[0]][p[1]]
+                    # Predict by continuing the local slope along the line behind this pixel (up to
+                    # SLOPE_CELLS cells, none across an edge), which keeps steep but smooth films on the
+                    # right branch of the colour path; the longer baseline averages out colour noise.
+                    sy, sx = y - yy, x - xx
+                    backward = k ^ 1  # the direction index opposite to k
+                    predicted, back = t0, 0
+                    for j in range(1, SLOPE_CELLS + 1):
+                        by, bx = y + j * sy, x + j * sx
+                        if not (0 <= by < H and 0 <= bx < W) or chosen[by][bx] is None or \
+                                region[by, bx] != rid or edge[by - sy][bx - sx][backward]:
+                            break
+                        back = j
+                    if back:
+                        predicted = t0 + (t0 - chosen[y + back * sy][x + back * sx]) / back
                     best, best_cost, best_jump, best_d = None, 1e18, 0.0, 0.0
                     for t, d in zip(ct[yy][xx], cd[yy][xx]):
                         if d > 1e8:
                             break  # sorted by colour distance: the rest are missing
                         if t == t and d <= floor:  # not NaN, and a good enough match at an edge
-                            jump = min(abs(t - predicted), abs(t - t0))
+                            jump = abs(t - predicted)
                             cost = jump + 0.5 * d
                             along = (yy - y) * ty + (xx - x) * tx
                             if along and (t - t0) * along < -0.05 * period_nm:
                                 cost += period_nm  # against the trend
                             if cost < best_cost:
                                 best, best_cost, best_jump, best_d = t, cost, jump, d
+                    if best is None or (not across_edge and best_jump > break_nm):
+                        continue  # no candidate continues the film here: left for another path or region
                     chosen[yy][xx] = best
-                    parent[yy][xx] = (y, x)
                     region[yy, xx] = rid
                     quality = 0.05 * best_d + (0.5 if across_edge else best_jump / period_nm)
                     heapq.heappush(heap, (quality, yy, xx))
@@ -519,7 +541,7 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     valid = ~(saturated | dark)
     if not valid.any():
         raise FilmcalcError("Every pixel is saturated or nearly black: check the exposure of the photo.")
-    camera, calibration = _initial_camera(rgb, valid, lookup, reference, self_calibrate)
+    camera, calibration = _initial_camera(rgb, valid, lookup, reference, self_calibrate, anchors)
     shift_dE = 0.0
     if self_calibrate and reference is None:
         # Fit the camera on a subsample (≤ 250 000 pixels), alternating with the map.
@@ -537,7 +559,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
             if not has.any():
                 break
             chosen = _resolve(small_cands, has, small_anchors, period, small_colours, trend, coarse_max=64)[0]
-            camera, shift, fitted = _refit_camera(camera, chosen, has, srgb_decode(small), lookup, full_matrix)
+            camera, shift, fitted = _refit_camera(camera, chosen, has, srgb_decode(small), lookup, full_matrix,
+                                                  anchored="anchor gains" in calibration)
             shift_dE += shift
             calibration.update(fitted)
     report(0.7, "matching colours")
@@ -556,7 +579,7 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     lab_lut = lookup.lab(camera)
     slope = np.linalg.norm(np.gradient(lab_lut, lookup.thickness_nm, axis=0), axis=1)  # ΔE per nm
     noise = float(1.4826 * np.median(best_d[ok]))
-    washout_nm = _washout_thickness(stack, lookup, camera, angle_deg)
+    washout_nm = _washout_thickness(stack, lookup, camera, angle_deg, (thickness[ok], best_d[ok]), noise)
     lut_index = cands.i[cands.key, pick]
     sigma = np.where(ok, np.maximum(noise, best_d) / np.maximum(slope[lut_index], 1e-3), np.nan)
     sigma = np.minimum(sigma, period / 2)
@@ -572,15 +595,27 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     flags[valid & ~has] |= FLAGS["no_match"]
     ambiguous = ok & np.isfinite(second) & (second < best_d + 1.0) & (np.abs(other_t - thickness) > period / 3) & \
         (np.abs(thickness - local) > period / 4)
+    # Continuity chose a candidate that another fringe order clearly out-fits: the colours there
+    # cannot tell the orders apart reliably (e.g. a camera the model does not describe well).
+    best_any = cands.d[cands.key, 0]
+    ambiguous |= ok & (best_any < best_d - max(2.0, 2.0 * noise))
     flags[ambiguous] |= FLAGS["ambiguous"]
     flags[ok & (np.abs(thickness - local) > period / 3)] |= FLAGS["inconsistent"]
     if washout_nm is not None:
-        flags[ok & (thickness >= washout_nm)] |= FLAGS["washed_out"]
+        # Past the limit, or within a period of it with a colour that fits a washed-out thickness
+        # about as well as the chosen one (within the colour noise, at least 1 ΔE).
+        past = np.min(np.where(cands.t >= washout_nm, cands.d, np.inf), axis=1)[cands.key]
+        near = (thickness >= washout_nm - period) & (past <= best_d + max(1.0, noise))
+        flags[ok & ((thickness >= washout_nm) | near)] |= FLAGS["washed_out"]
     typical_residual = float(np.nanmedian(residual[ok])) if ok.any() else 0.0
     flags[ok & (residual > max(POOR_FIT_MIN_DE, POOR_FIT_FACTOR * typical_residual))] |= FLAGS["poor_fit"]
-    if anchors:
-        anchored_regions = {int(region[y, x]) for x, y, _ in anchors}
-        flags[ok & ~np.isin(region, list(anchored_regions))] |= FLAGS["unanchored"]
+    # Regions the growth could not join (separate patches of film, or colours that do not continue
+    # the film) have fringe orders of their own: flagged unless an anchor ties them; without
+    # anchors the largest region is the reference.
+    ids, counts = np.unique(region[ok & (region >= 0)], return_counts=True)
+    tied = {int(region[y, x]) for x, y, _ in anchors} if anchors else set(ids[np.argmax(counts):][:1].tolist())
+    if ids.size:
+        flags[ok & ~np.isin(region, list(tied))] |= FLAGS["unanchored"]
     order = np.where(ok, lookup.order[lut_index], 0).astype(np.int16)
     stats = _statistics(thickness, flags, pixel_size_um)
     calibration.update({"matrix": camera.matrix.round(5).tolist(), "gains": camera.gains.round(5).tolist(),
@@ -596,8 +631,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
                         order, flags, camera, calibration, stats, warnings, time.perf_counter() - t_start)
 
 
-def _initial_camera(rgb, valid, lookup, reference, self_calibrate):
-    """Gains from a reference region, an exposure guess for self-calibration, or the identity."""
+def _initial_camera(rgb, valid, lookup, reference, self_calibrate, anchors=()):
+    """Gains from a reference region or the anchors, an exposure guess for self-calibration, or the identity."""
     H, W, _ = rgb.shape
     if reference is not None:
         x0, y0, x1, y1, t_ref = reference
@@ -613,6 +648,17 @@ def _initial_camera(rgb, valid, lookup, reference, self_calibrate):
         return CameraModel(np.diag(gains)), {"method": "reference region", "reference": list(reference)}
     if not self_calibrate:
         return CameraModel(), {"method": "none (camera taken as ideal)"}
+    if anchors:
+        # Anchors are small references: the pixels around each give the per-channel gains.
+        ratios = []
+        for x, y, t in anchors:
+            patch = rgb[max(0, y - 2):y + 3, max(0, x - 2):x + 3][valid[max(0, y - 2):y + 3, max(0, x - 2):x + 3]]
+            expected = np.array([np.interp(t, lookup.thickness_nm, lookup.linear_rgb[:, i]) for i in range(3)])
+            if patch.size and np.all(expected > 0.02):
+                ratios.append(srgb_decode(patch).mean(axis=0) / expected)
+        if ratios:
+            gains = np.median(ratios, axis=0)
+            return CameraModel(np.diag(gains)), {"method": "self-calibration", "anchor gains": gains.round(4).tolist()}
     # Exposure guess: match the bright end of the photo to the bright end of the colour path.
     lin = srgb_decode(rgb[valid][::max(1, int(valid.sum()) // 200_000)])  # a subsample is plenty
     observed = np.percentile(lin.mean(axis=1), 95)
@@ -621,7 +667,7 @@ def _initial_camera(rgb, valid, lookup, reference, self_calibrate):
     return CameraModel(np.eye(3) * k), {"method": "self-calibration", "initial_exposure": round(k, 4)}
 
 
-def _refit_camera(camera, chosen, has, linear, lookup, full_matrix):
+def _refit_camera(camera, chosen, has, linear, lookup, full_matrix, anchored=False):
     """One calibration step: fit the camera to the current assignment, keep it if it explains the photo better."""
     good = has & np.isfinite(chosen)
     sel = np.flatnonzero(good.ravel())
@@ -641,6 +687,8 @@ def _refit_camera(camera, chosen, has, linear, lookup, full_matrix):
     use_full = rich if full_matrix is None else (full_matrix and rich)
     gains = _fit_gains(w * pred, w * obs)
     note = {}
+    if few and anchored:
+        return camera, 0.0, {"note": "few distinct colours: gains from the anchors kept"}
     if few:
         # A nearly uniform film shows too few colours to tell a colour cast from a thickness
         # change: fit the exposure only (a reference region calibrates such photos fully).
@@ -663,13 +711,18 @@ def _refit_camera(camera, chosen, has, linear, lookup, full_matrix):
     return CameraModel(new), shift, {"full_matrix": bool(use_full), **note}
 
 
-def _washout_thickness(stack, lookup, camera, angle_deg=None):
-    """Thickness from which white-light colours no longer vary enough to read (None if beyond the range).
+def _washout_thickness(stack, lookup, camera, angle_deg=None, fit=None, noise=0.0):
+    """Thickness from which colours no longer vary enough to read (None if beyond the range).
 
     The colour path, from 0 nm to one period past the user's range, is
-    compared with its running mean over one fringe period: where its
-    excursion stays below ``WASHOUT_DE``, neighbouring orders look alike and
-    pixels there are flagged instead of guessed.
+    compared with its running mean over one fringe period. Past the
+    thickness of its largest excursion (colours only fade from there), the
+    limit is the first thickness where the excursion falls below
+    ``WASHOUT_DE`` or below ``WASHOUT_MISFIT`` times how badly the model fits
+    the photo there (the median colour distance of the pixels assigned
+    nearby, ``fit`` = (thickness, ΔE76) per pixel; the photo's ``noise``
+    where too few pixels say): neighbouring orders then look alike to this
+    camera, and pixels past it are flagged instead of guessed.
     """
     from scipy.ndimage import maximum_filter1d, uniform_filter1d
 
@@ -677,13 +730,26 @@ def _washout_thickness(stack, lookup, camera, angle_deg=None):
     wide = lookup if lookup.thickness_nm[0] == 0 and lookup.thickness_nm[-1] >= top else \
         build_lookup(stack, (0.0, top), 0.5, angle_deg)
     lab = wide.lab(camera)
-    n = max(3, int(round(wide.period_nm / (wide.thickness_nm[1] - wide.thickness_nm[0]))))
+    t = wide.thickness_nm
+    n = max(3, int(round(wide.period_nm / (t[1] - t[0]))))
     amplitude = maximum_filter1d(np.linalg.norm(lab - uniform_filter1d(lab, n, axis=0, mode="nearest"), axis=1),
                                  n, mode="nearest")
-    readable = np.flatnonzero(amplitude >= WASHOUT_DE)
-    if readable.size == 0:
-        return 0.0
-    limit = float(wide.thickness_nm[min(readable[-1] + 1, wide.thickness_nm.size - 1)])
+    misfit = np.full(t.shape, noise)
+    if fit is not None and fit[0].size:
+        # Median misfit of the pixels within half a period, on a grid of eighth periods.
+        step = max(1, fit[0].size // 200_000)
+        order = np.argsort(fit[0][::step])
+        ft, fd = fit[0][::step][order], fit[1][::step][order]
+        half = wide.period_nm / 2
+        for c in np.arange(0.0, t[-1] + half / 4, half / 4):
+            a, b = np.searchsorted(ft, [c - half, c + half])
+            if b - a >= 200:
+                misfit[np.abs(t - c) <= half / 8] = np.median(fd[a:b])
+    unreadable = amplitude < np.maximum(WASHOUT_DE, WASHOUT_MISFIT * misfit)
+    unreadable[:int(np.argmax(amplitude))] = False
+    if not unreadable.any():
+        return None
+    limit = float(t[np.argmax(unreadable)])
     return None if limit > lookup.thickness_nm[-1] else limit
 
 

@@ -125,8 +125,9 @@ def test_bad_anchor_and_reference(lookup):
 
 
 def test_washed_out_colours_are_flagged_not_guessed():
-    # Thick resist loses its colours past about 1.1–1.2 µm in white light: pixels there are
-    # flagged (the limit is reported), and a thin part of the same photo is not.
+    # Thick resist loses its colours past about 1.0–1.2 µm in white light: pixels there are
+    # flagged (as washed out, or as a region the anchor does not tie to: the limit is reported),
+    # and a thin part of the same photo is not.
     resist = loads_stack('[ambient]\nmaterial = "air"\n[[layers]]\nmaterial = "photoresist"\nthickness_nm = 1\n'
                          'unknown = true\n[substrate]\nmaterial = "silicon"\n[light]\nsource = "D65"\n')
     truth = wedge(SHAPE, 300, 2500)
@@ -134,5 +135,50 @@ def test_washed_out_colours_are_flagged_not_guessed():
     limit = result.calibration["washout_nm"]
     assert limit is not None and 900 < limit < 1600
     washed = result.flag_mask("washed_out")
-    assert washed[truth > limit + 200].mean() > 0.9
+    assert (result.flags != 0)[truth > limit + 200].mean() > 0.9
     assert not washed[truth < limit - 300].any()
+
+
+def test_disconnected_patches_are_flagged_unless_anchored(lookup):
+    # Two patches of film separated by a dark band: each is resolved, and only the one an anchor
+    # ties (or, without anchors, the larger one) is unflagged.
+    truth = dome(SHAPE, 150, 600)
+    photo = render_photo(OXIDE, truth)
+    photo[:, 95:105] = 0.0
+    alone = thickness_map(photo, OXIDE, lookup=lookup)
+    assert alone.flag_mask("unanchored")[:, 110:].mean() > 0.9
+    assert not alone.flag_mask("unanchored")[:, :90].any()
+    tied = thickness_map(photo, OXIDE, anchors=[(120, 45, float(truth[45, 120]))], lookup=lookup)
+    assert tied.flag_mask("unanchored")[:, :90].mean() > 0.9
+    assert not tied.flag_mask("unanchored")[:, 110:].any()
+    err = tied.thickness_nm[:, 110:] - truth[:, 110:]
+    assert np.nanmax(np.abs(err)) < 25
+
+
+def test_anchor_gives_gains_on_a_nearly_uniform_film(lookup):
+    # A flat film shows one colour: a colour cast cannot be told from a thickness change, but a
+    # pixel of known thickness calibrates the per-channel gains.
+    truth = np.full(SHAPE, 420.0)
+    photo = render_photo(OXIDE, truth, CameraSettings(gains=(1.1, 1.0, 0.9), exposure=0.8))
+    result = thickness_map(photo, OXIDE, anchors=[(75, 45, 420.0)], lookup=lookup)
+    assert result.camera.gains == pytest.approx(np.array([1.1, 1.0, 0.9]) * 0.8, rel=0.02)
+    assert np.nanmax(np.abs(result.thickness_nm - truth)) < 3
+
+
+def test_steep_wedge_with_a_non_colorimetric_camera():
+    # A real camera (measured sensitivities, colour-corrected on a colour checker) shifts film
+    # colours by a few ΔE: order resolution continues the local slope over several pixels, so
+    # the wedge keeps its fringe orders; the limit reported beyond which colours are unreadable
+    # for this camera is respected.
+    from pathlib import Path
+
+    from filmcalc.stack import load_stack
+    from filmcalc.synthetic import measured_camera_lookup
+
+    coupon = load_stack(Path(__file__).resolve().parent.parent / "demo_data" / "oxide-coupon.toml")
+    truth = wedge((100, 300), 20, 1200)
+    measured, _ = measured_camera_lookup(coupon, (0, 1201))
+    result = thickness_map(render_photo(coupon, truth, lookup=measured), coupon, (0.0, 1500.0))
+    covered = np.isfinite(result.thickness_nm) & (result.flags == 0)
+    assert covered.mean() > 0.8
+    assert np.mean(np.abs(result.thickness_nm - truth)[covered] > 25) < 0.02
