@@ -133,10 +133,14 @@ def main():
     # Throughput on a larger photo (a smooth oxide dome).
     ox = load_stack(DEMO / "oxide-coupon.toml")
     big = render_photo(ox, dome((1000, 2000), 100, 1000))
-    t0 = time.perf_counter()
-    thickness_map(big, ox, (0, 1500))
-    seconds = time.perf_counter() - t0
-    print(f"throughput: 2.0 megapixels, 0–1500 nm, self-calibrated, in {seconds:.2f} s = {2.0 / seconds:.2f} MP/s")
+    runs = []
+    for _ in range(3):  # the median of three runs: this machine is shared
+        t0 = time.perf_counter()
+        thickness_map(big, ox, (0, 1500))
+        runs.append(time.perf_counter() - t0)
+    seconds = float(np.median(runs))
+    print(f"throughput: 2.0 megapixels, 0–1500 nm, self-calibrated, in {seconds:.2f} s (median of 3) = "
+          f"{2.0 / seconds:.2f} MP/s")
     if args.big:
         big_photo()
 

@@ -39,12 +39,18 @@ Method
 3. Calibration: a reference region of known thickness (e.g. bare substrate at
    0 nm) gives the per-channel gains; so do the pixels around anchors, as a
    start. Without a reference region, the camera correction is
-   fitted jointly with the map on a subsample (three alternating passes):
+   fitted jointly with the map on a subsample (up to three alternating passes):
    a 3 × 3 matrix, ridge-regularised towards the gains, when the photo's
    colours span enough of colour space; gains otherwise; exposure only when
    the photo shows few colours. Each thickness counts once in the fit.
 4. Uncertainty (1σ): colour noise (robust spread of the residuals) divided
-   by the local slope of the colour path, |dLab/dd|.
+   by the local slope of the colour path, |dLab/dd|, and at least the
+   spread (width/√12) of the stretch of path that stays as close to the
+   pixel's colour (within the noise, at least 1 ΔE76). On such stretches
+   wider than an eighth of a period (a flat colour path: near 0 nm, at
+   turning points, towards the wash-out), away from colour edges, the
+   thickness nearest the local reference within the stretch is taken:
+   colour cannot choose there, the neighbours can.
 5. Flags instead of guesses: saturated, dark, no match, ambiguous (another
    order fits about as well, or clearly better), a region no anchor ties to
    (without anchors: every region but the largest), inconsistent with
@@ -61,7 +67,9 @@ Theory, Algorithms, and Software, ch. 4 (quality-guided path following).
 from __future__ import annotations
 
 import dataclasses
+import functools
 import heapq
+import os
 import time
 
 import numpy as np
@@ -98,6 +106,7 @@ WASHOUT_DE = 5.0
 WASHOUT_MISFIT = 5.0
 
 _D65_XYZ = _xy_to_XYZ(_D65_XY) * 100
+_WORKERS = min(4, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1))
 _SRGB_TO_XYZ = np.linalg.inv(_XYZ_TO_SRGB)  # linear sRGB → XYZ (Y = 1), D65 white
 
 
@@ -152,6 +161,11 @@ class ColourLookup:
 
     def lab(self, camera):
         return lab_of_encoded(self.encoded(camera))
+
+    def within(self, lo, hi):
+        """The part of the path from ``lo`` to ``hi`` nm."""
+        keep = (self.thickness_nm >= lo - 1e-9) & (self.thickness_nm <= hi + 1e-9)
+        return ColourLookup(self.thickness_nm[keep], self.linear_rgb[keep], self.order[keep], self.period_nm)
 
 
 def build_lookup(stack, range_nm=(0.0, 1500.0), step_nm=0.5, angle_deg=None, observer="2"):
@@ -223,23 +237,33 @@ class _Colours:
     @classmethod
     def of(cls, encoded):
         H, W, _ = encoded.shape
-        q = np.clip(np.rint(encoded.reshape(-1, 3) * 255), 0, 255).astype(np.int32)
+        q = np.clip(np.rint(encoded.reshape(-1, 3) * np.float32(255)), 0, 255).astype(np.int32)
         codes = (q[:, 0] << 16) | (q[:, 1] << 8) | q[:, 2]
-        uniq, inverse = np.unique(codes, return_inverse=True)
+        del q
+        # A table over all 2²⁴ 8-bit colours: linear time, where sorting the pixels is not.
+        present = np.zeros(1 << 24, dtype=bool)
+        present[codes] = True
+        uniq = np.flatnonzero(present).astype(np.int32)
+        del present
+        table = np.zeros(1 << 24, dtype=np.int32)
+        table[uniq] = np.arange(uniq.size, dtype=np.int32)
+        inverse = table[codes].reshape(H, W)
         rgb = np.stack([(uniq >> 16) & 255, (uniq >> 8) & 255, uniq & 255], axis=1) / 255.0
-        return cls((H, W), inverse.astype(np.int32).reshape(H, W), rgb, lab_of_encoded(rgb))
+        return cls((H, W), inverse, rgb, lab_of_encoded(rgb))
 
     def per_pixel(self, values):
         """Spread per-colour values (U, ...) to the image (H, W, ...)."""
         return np.asarray(values)[self.inverse]
 
     def block_mean_lab(self, step, shape):
-        """CIELAB averaged over step × step blocks, on a grid of the given (coarse) shape."""
+        """CIELAB averaged over step × step blocks (up to 5 × 5 pixels spread over each), on a grid of
+        the given (coarse) shape."""
         hb, wb = shape
         acc = np.zeros((hb, wb, 3))
         count = np.zeros((hb, wb, 1))
-        for dy in range(step):
-            for dx in range(step):
+        offsets = np.unique(np.linspace(0, step - 1, min(step, 5)).astype(int))
+        for dy in offsets:
+            for dx in offsets:
                 part = self.inverse[dy::step, dx::step][:hb, :wb]
                 acc[:part.shape[0], :part.shape[1]] += self.lab[part]
                 count[:part.shape[0], :part.shape[1]] += 1
@@ -276,6 +300,15 @@ class _Candidates:
     i: np.ndarray    # (U + 1, C) int32, index into the lookup, 0 where none
     key: np.ndarray  # (H, W) int32
 
+    @functools.cached_property
+    def gap(self):
+        """(U + 1, C) thickness distance from each candidate to the nearest other one of its colour."""
+        with np.errstate(invalid="ignore"):
+            apart = np.abs(self.t[:, :, None] - self.t[:, None, :])
+        C = self.t.shape[1]
+        apart[:, np.arange(C), np.arange(C)] = np.inf
+        return np.nan_to_num(np.min(apart, axis=2), nan=np.inf)
+
     def at(self, rows, cols):
         """(h, w, C) arrays for a sub-grid."""
         k = self.key[rows, cols]
@@ -286,7 +319,8 @@ class _Candidates:
 
     def take(self, pick, which="t"):
         """The picked candidate's thickness (or distance) per pixel."""
-        return (self.t if which == "t" else self.d)[self.key, pick]
+        table = self.t if which == "t" else self.d
+        return table.ravel()[self.key * np.int32(table.shape[1]) + pick]
 
 
 def _pixel_candidates(colours, usable, lookup, camera, tolerance, max_candidates):
@@ -302,21 +336,129 @@ def _pixel_candidates(colours, usable, lookup, camera, tolerance, max_candidates
     return _Candidates(t, d, i, key)
 
 
-def _nearest_candidate(cands, reference, colour_weight):
+def _nearest_candidate(cands, reference, colour_weight, key=None):
     """Index of the candidate nearest a reference thickness (colour distance as a tie-break).
 
     Missing candidates carry an infinite colour distance, so they never win.
+    ``key`` (the colour rows) defaults to every pixel's; the result has the reference's shape.
     """
-    key = cands.key.ravel()
-    ref = reference.reshape(-1, 1).astype(np.float32)
+    shape = np.shape(reference)
+    key = cands.key.ravel() if key is None else key
+    ref = np.reshape(reference, (-1, 1)).astype(np.float32)
     pick = np.empty(key.size, dtype=np.int8)
     weight = np.float32(colour_weight)
-    for a in range(0, key.size, 65536):  # cache-sized blocks
+
+    def block(a):  # cache-sized blocks, shared out over the cores (numpy releases the GIL)
         k = key[a:a + 65536]
         cost = np.abs(cands.t[k] - ref[a:a + 65536])
         cost += weight * cands.d[k]
         pick[a:a + 65536] = np.argmin(cost, axis=-1)
+
+    _in_parallel(block, range(0, key.size, 65536))
+    return pick.reshape(shape)
+
+
+def _repick(cands, reference, pick):
+    """:func:`_nearest_candidate` (colour weight 1), starting from a current pick.
+
+    Only pixels where another candidate could be nearer are looked at again: a
+    candidate c beats the current pick p only if |t_c − t_p| < 2·|t_p − ref| + d_p
+    (as d_c ≥ 0), so where no other candidate is that close the pick stands.
+    """
+    flat = (cands.key * np.int32(cands.t.shape[1]) + pick).ravel()
+    ref = np.ravel(reference)
+    bound = 2 * np.abs(cands.t.ravel()[flat] - ref) + cands.d.ravel()[flat]
+    again = np.flatnonzero(~(cands.gap.ravel()[flat] >= bound))
+    del flat, bound
+    pick = pick.ravel().copy()
+    pick[again] = _nearest_candidate(cands, ref[again], 1.0, cands.key.ravel()[again])
     return pick.reshape(cands.key.shape)
+
+
+def _stretch(lab_obs, index, distance, lab_lut, lookup, margin):
+    """The stretch of thickness around lookup entries ``index`` where the colour path stays within
+    ``distance + margin`` (ΔE76) of the colours ``lab_obs`` (..., 3), up to a quarter period each way,
+    found to 2 nm. Returns its ends (low, high) in nm, shaped like ``index``."""
+    shape = np.shape(index)
+    index, distance = np.ravel(index), np.ravel(distance)
+    lab_obs = np.reshape(lab_obs, (-1, 3))
+    step = float(lookup.thickness_nm[1] - lookup.thickness_nm[0])
+    stride = max(1, int(round(2.0 / step)))
+    reach = max(1, int(lookup.period_nm / 4 / step / stride))
+    offsets = np.arange(-reach, reach + 1) * stride
+    L = lab_lut.shape[0]
+    low = np.empty(index.size, dtype=np.float32)
+    high = np.empty(index.size, dtype=np.float32)
+    for a in range(0, index.size, 4096):
+        i = index[a:a + 4096]
+        j = i[:, None] + offsets
+        inside = np.linalg.norm(lab_lut[np.clip(j, 0, L - 1)] - lab_obs[a:a + 4096, None, :], axis=-1) \
+            <= distance[a:a + 4096, None] + margin
+        inside &= (j >= 0) & (j < L)
+        # Contiguous from the entry outwards on each side.
+        right = np.maximum(np.cumprod(inside[:, reach:], axis=1).sum(axis=1) - 1, 0)
+        left = np.maximum(np.cumprod(inside[:, reach::-1], axis=1).sum(axis=1) - 1, 0)
+        low[a:a + 4096] = lookup.thickness_nm[np.maximum(i - stride * left, 0)]
+        high[a:a + 4096] = lookup.thickness_nm[np.minimum(i + stride * right, L - 1)]
+    return low.reshape(shape), high.reshape(shape)
+
+
+def _colour_stretch(cands, flat, ok, lab_obs, lab_lut, lookup, margin):
+    """:func:`_stretch` for every (colour, candidate) pair some pixel uses.
+
+    Returns two flat tables, (U + 1) · C long, of the stretch's ends in nm (the candidate's own
+    thickness, or NaN where it is missing, for the pairs not computed).
+    """
+    low = np.where(np.isfinite(cands.t), cands.t, np.nan).astype(np.float32).ravel()
+    high = low.copy()
+    used = np.flatnonzero(np.bincount(flat[ok], minlength=cands.t.size))
+    C = cands.t.shape[1]
+    low[used], high[used] = _stretch(lab_obs[used // C], cands.i.ravel()[used], cands.d.ravel()[used], lab_lut,
+                                     lookup, margin)
+    return low, high
+
+
+def _near_colour_edge(colours, pixels, distances):
+    """Whether each of the (flat-indexed) pixels has a colour edge (over ``EDGE_DE``) within the
+    given distances along the rows or columns."""
+    H, W = colours.shape
+    y, x = np.divmod(pixels, W)
+    here = colours.lab[colours.inverse.ravel()[pixels]]
+    near = np.zeros(pixels.size, dtype=bool)
+    for r in distances:
+        for yy, xx in ((y + r, x), (y - r, x), (y, x + r), (y, x - r)):
+            there = colours.inverse[np.clip(yy, 0, H - 1), np.clip(xx, 0, W - 1)]
+            near |= np.linalg.norm(colours.lab[there] - here, axis=-1) > EDGE_DE
+    return near
+
+
+def _upsample(coarse, step, shape):
+    """Bilinear interpolation of a grid sampled every ``step`` pixels (from pixel 0) to ``shape``."""
+    H, W = shape
+    h, w = coarse.shape
+    xs = np.arange(W, dtype=np.float32) / step
+    rows = np.stack([np.interp(xs, np.arange(w), coarse[r]) for r in range(h)]).astype(np.float32)
+    ys = np.minimum(np.arange(H, dtype=np.float32) / step, h - 1)
+    y0 = np.floor(ys).astype(np.int64)
+    y1 = np.minimum(y0 + 1, h - 1)
+    fy = (ys - y0)[:, None].astype(np.float32)
+    out = rows[y0]
+    out *= 1 - fy
+    out += fy * rows[y1]
+    return out
+
+
+def _in_parallel(function, items):
+    """Call ``function`` on every item, on as many threads as there are cores."""
+    items = list(items)
+    if len(items) < 2 or _WORKERS < 2:
+        for item in items:
+            function(item)
+        return
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(_WORKERS) as pool:
+        list(pool.map(function, items))
 
 
 EDGE_DE = 12.0  # colour change between neighbours (ΔE76) taken as an edge of the film (a step)
@@ -329,7 +471,7 @@ SLOPE_CELLS = 3  # cells behind a pixel over which the local slope is taken (our
 TRENDS = {"right": (0, 1), "left": (0, -1), "down": (1, 0), "up": (-1, 0)}
 
 
-def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
+def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None, cand_lo=None, cand_hi=None):
     """Quality-guided growth over a small grid; returns chosen thickness (NaN unreached) and region ids.
 
     Across a smooth film the next pixel takes the candidate nearest the
@@ -358,8 +500,18 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
     edge = edge.tolist()
     # Candidates far worse in colour than a cell's best never win; leaving them out keeps the loop short.
     keep = np.isfinite(cand_t) & (cand_d <= cand_d[..., :1] + max(8.0, 3 * noise_margin))
-    ct = np.where(keep, cand_t, np.nan).tolist()
-    cd = np.where(keep, cand_d, 1e9).tolist()
+    # Per cell, the kept candidates as (thickness, ΔE, low, high), best colour first: each stands
+    # for the stretch of thickness whose colour fits as well (a point where the colour path is
+    # steep, a range where it is flat), and continuity picks within it.
+    lo_all = cand_t if cand_lo is None else cand_lo
+    hi_all = cand_t if cand_hi is None else cand_hi
+    cells = [[[] for _ in range(W)] for _ in range(H)]
+    ys, xs, _ = np.nonzero(keep)
+    values = np.stack([cand_t[keep], cand_d[keep], lo_all[keep], hi_all[keep]], axis=1).tolist()
+    for y, x, v in zip(ys.tolist(), xs.tolist(), values):
+        cells[y][x].append(v)
+    first_t = np.where(keep[..., 0], cand_t[..., 0], np.nan).tolist()
+    first_d = np.where(keep[..., 0], cand_d[..., 0], 1e9).tolist()
     ok = (valid & np.isfinite(cand_t[..., 0])).tolist()
     chosen = [[None] * W for _ in range(H)]
     region = np.full((H, W), -1, dtype=np.int64)
@@ -385,7 +537,7 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
             for k, (yy, xx) in enumerate(((y + 1, x), (y - 1, x), (y, x + 1), (y, x - 1))):
                 if 0 <= yy < H and 0 <= xx < W and ok[yy][xx] and chosen[yy][xx] is None:
                     across_edge = edge[y][x][k]
-                    floor = min(cd[yy][xx]) + noise_margin if across_edge else 1e18
+                    floor = first_d[yy][xx] + noise_margin if across_edge else 1e18
                     # Predict by continuing the local slope along the line behind this pixel (up to
                     # SLOPE_CELLS cells, none across an edge), which keeps steep but smooth films on the
                     # right branch of the colour path; the longer baseline averages out colour noise.
@@ -401,10 +553,10 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
                     if back:
                         predicted = t0 + (t0 - chosen[y + back * sy][x + back * sx]) / back
                     best, best_cost, best_jump, best_d = None, 1e18, 0.0, 0.0
-                    for t, d in zip(ct[yy][xx], cd[yy][xx]):
-                        if d > 1e8:
-                            break  # sorted by colour distance: the rest are missing
-                        if t == t and d <= floor:  # not NaN, and a good enough match at an edge
+                    for t, d, lo, hi in cells[yy][xx]:
+                        if d <= floor:  # a good enough match at an edge
+                            if not across_edge:
+                                t = lo if predicted < lo else hi if predicted > hi else predicted
                             jump = abs(t - predicted)
                             cost = jump + 0.5 * d
                             along = (yy - y) * ty + (xx - x) * tx
@@ -423,7 +575,7 @@ def _grow(cand_t, cand_d, seeds, period_nm, valid, lab, trend=None):
             y, x = divmod(order[pos], W)
             pos += 1
             if ok[y][x] and chosen[y][x] is None:
-                chosen[y][x] = ct[y][x][0]
+                chosen[y][x] = first_t[y][x]
                 region[y, x] = next_region
                 next_region += 1
                 heap.append((0.0, y, x))
@@ -438,16 +590,23 @@ def _blur_normalised(values, weights, sigma):
     """Gaussian-weighted local mean of ``values`` where ``weights`` > 0 (normalised convolution)."""
     from scipy.ndimage import gaussian_filter
 
-    w = np.where(np.isfinite(values), weights, 0.0)
-    num = gaussian_filter(np.where(w > 0, values, 0.0) * w, sigma, mode="nearest")
-    den = gaussian_filter(w, sigma, mode="nearest")
-    return np.divide(num, den, out=np.full(values.shape, np.nan), where=den > 1e-12)
+    dtype = np.result_type(values, np.float32)
+    w = np.where(np.isfinite(values), weights, 0).astype(dtype)
+    num, den = np.where(w > 0, values, 0) * w, w
+
+    def blur(array):  # in place; the two run on separate cores
+        gaussian_filter(array, sigma, output=array, mode="nearest", truncate=3.0)
+
+    _in_parallel(blur, [num, den])
+    return np.divide(num, den, out=np.full(values.shape, np.nan, dtype), where=den > 1e-6)
 
 
-def _resolve(cands, valid, anchors, period_nm, colours, trend=None, coarse_max=96):
-    """Order resolution, coarse to fine (see the module docstring)."""
-    from scipy.ndimage import zoom
+def _resolve(cands, valid, anchors, period_nm, colours, trend=None, coarse_max=96, lab_lut=None, lookup=None):
+    """Order resolution, coarse to fine (see the module docstring).
 
+    With ``lab_lut`` (the predicted colours) and ``lookup``, candidates on the coarse grid stand
+    for the stretches of thickness whose colour fits as well (see :func:`_stretch`).
+    """
     H, W = cands.key.shape
     step = max(1, int(np.ceil(max(H, W) / coarse_max)))
     ct, cd = cands.at(slice(None, None, step), slice(None, None, step))
@@ -460,19 +619,35 @@ def _resolve(cands, valid, anchors, period_nm, colours, trend=None, coarse_max=9
             seeds.append((yy, xx, float(ct[yy, xx, j])))
     # Edges are judged on block means (noise averages out), candidates on the sampled pixels.
     lab_blocks = colours.block_mean_lab(step, ct.shape[:2])
-    coarse, region = _grow(ct, cd, seeds, period_nm, cv, lab_blocks, trend)
+    lo = hi = None
+    if lab_lut is not None:
+        # Stretches for each distinct colour on the grid, for the candidates that fit about as
+        # well as its best (the others seldom win and stay points).
+        rows, inverse = np.unique(cands.key[::step, ::step], return_inverse=True)
+        rows = rows[rows < colours.lab.shape[0]]  # not the row of unusable pixels
+        d = cands.d[rows]
+        best = d[:, 0][np.isfinite(d[:, 0])]
+        margin = max(1.0, 1.4826 * float(np.median(best))) if best.size else 1.0
+        fits = np.isfinite(d) & (d <= d[:, :1] + 4 * margin)
+        lo_rows, hi_rows = cands.t[rows].copy(), cands.t[rows].copy()
+        r, c = np.nonzero(fits)
+        lo_rows[r, c], hi_rows[r, c] = _stretch(colours.lab[rows[r]], cands.i[rows[r], c], d[r, c], lab_lut, lookup,
+                                                margin)
+        pad = np.full((1, lo_rows.shape[1]), np.inf, np.float32)  # for the unusable row, if present
+        inverse = inverse.reshape(ct.shape[:2])
+        lo, hi = np.vstack([lo_rows, pad])[inverse], np.vstack([hi_rows, pad])[inverse]
+    coarse, region = _grow(ct, cd, seeds, period_nm, cv, lab_blocks, trend, lo, hi)
     # Fill unreached coarse cells so the upsampled reference is defined everywhere.
     filled = np.where(np.isnan(coarse), _blur_normalised(coarse, np.ones_like(coarse), 2.0), coarse)
     filled = np.where(np.isnan(filled), np.nanmean(coarse) if np.any(np.isfinite(coarse)) else 0.0, filled)
-    reference = zoom(filled.astype(np.float32), (H / filled.shape[0], W / filled.shape[1]), order=1,
-                     mode="nearest")[:H, :W]
-    pick = _nearest_candidate(cands, reference, 1.0)
+    reference = _upsample(filled.astype(np.float32), step, (H, W))
+    pick = _repick(cands, reference, np.zeros((H, W), dtype=np.int8))
     chosen = cands.take(pick)
     # Second pass against a locally smoothed reference (weights favour good colour matches).
     local = _blur_normalised(chosen, (1.0 / (1.0 + cands.take(pick, "d"))).astype(np.float32), 3.0)
     local = np.where(np.isfinite(local), local, reference).astype(np.float32)
     del reference
-    pick = _nearest_candidate(cands, local, 1.0)
+    pick = _repick(cands, local, pick)
     region_full = np.repeat(np.repeat(region.astype(np.int32), step, axis=0), step, axis=1)[:H, :W]
     return cands.take(pick), pick, local, region_full, len(seeds)
 
@@ -534,7 +709,18 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
         if not range_nm[0] <= t <= range_nm[1]:
             raise FilmcalcError(f"Anchor thickness {t} nm lies outside the range {range_nm[0]}–{range_nm[1]} nm.")
     report(0.05, "predicting the film's colours")
-    lookup = lookup or build_lookup(stack, range_nm, step_nm, angle_deg)
+    wide = None
+    if lookup is None:
+        lo, hi = float(range_nm[0]), float(range_nm[1])
+        if 0 <= lo < hi and abs(lo / step_nm - round(lo / step_nm)) < 1e-9:
+            # One path from 0 nm to a period past the range serves both the search (sliced to the
+            # range) and the wash-out limit.
+            angle = stack.light.angle_deg if angle_deg is None else angle_deg
+            period_nm = 1.0 / float(fringe_order(stack, np.array([1.0]), angle)[0])
+            wide = build_lookup(stack, (0.0, hi + period_nm), step_nm, angle_deg)
+            lookup = wide.within(lo, hi)
+        else:
+            lookup = build_lookup(stack, range_nm, step_nm, angle_deg)
     period = lookup.period_nm
     saturated = colours.per_pixel(np.any(colours.rgb >= 0.995, axis=-1))
     dark = colours.per_pixel(colours.lab[:, 0] < 3.0)
@@ -544,8 +730,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     camera, calibration = _initial_camera(rgb, valid, lookup, reference, self_calibrate, anchors)
     shift_dE = 0.0
     if self_calibrate and reference is None:
-        # Fit the camera on a subsample (≤ 250 000 pixels), alternating with the map.
-        stride = max(1, int(np.ceil(np.sqrt(H * W / 250_000))))
+        # Fit the camera on a subsample (≤ 60 000 pixels), alternating with the map.
+        stride = max(1, int(np.ceil(np.sqrt(H * W / 60_000))))
         small = np.ascontiguousarray(rgb[::stride, ::stride])
         # Calibration works on colours rounded to 6 bits a channel: far fewer to search, and a
         # camera fit over thousands of pixels does not need the last bits.
@@ -558,11 +744,14 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
             has = small_cands.has()
             if not has.any():
                 break
-            chosen = _resolve(small_cands, has, small_anchors, period, small_colours, trend, coarse_max=64)[0]
+            chosen = _resolve(small_cands, has, small_anchors, period, small_colours, trend, coarse_max=48,
+                              lab_lut=lookup.lab(camera), lookup=lookup)[0]
             camera, shift, fitted = _refit_camera(camera, chosen, has, srgb_decode(small), lookup, full_matrix,
                                                   anchored="anchor gains" in calibration)
             shift_dE += shift
             calibration.update(fitted)
+            if k and shift < 0.1:
+                break  # converged: the last pass moved the colours by under 0.1 ΔE00
     report(0.7, "matching colours")
     cands = _pixel_candidates(colours, valid, lookup, camera, tolerance, max_candidates)
     has = cands.has()
@@ -570,53 +759,89 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
         raise FilmcalcError(f"No pixel matches any colour of this stack between {range_nm[0]:g} and "
                             f"{range_nm[1]:g} nm: check the stack, the light, the exposure and the range.")
     report(0.8, "resolving fringe orders")
-    chosen, pick, local, region, n_seeds = _resolve(cands, has, anchors, period, colours, trend)
+    chosen, pick, local, region, n_seeds = _resolve(cands, has, anchors, period, colours, trend,
+                                                    lab_lut=lookup.lab(camera), lookup=lookup)
     report(0.9, "uncertainty and flags")
-    best_d = cands.take(pick, "d")
-    ok = has & np.isfinite(chosen)
-    thickness = np.where(ok, chosen, np.nan)
+    # Everything but the agreement with the neighbours depends on the pixel's colour and picked
+    # candidate only: computed once per (colour, candidate) in tables, then looked up per pixel.
+    C = cands.t.shape[1]
+    flat = cands.key * np.int32(C) + pick
+    t_table = np.where(np.isfinite(cands.t), cands.t, np.nan).astype(np.float32)
+    d_table = cands.d
+    thickness = t_table.ravel()[flat]
+    ok = np.isfinite(thickness)
+    # Robust statistics over the photo are taken on a subsample of ≤ ~100 000 pixels.
+    every = max(1, H * W // 100_000)
+    sample = flat.ravel()[::every][ok.ravel()[::every]]
+    t_s, d_s = t_table.ravel()[sample], d_table.ravel()[sample]
+    noise = float(1.4826 * np.median(d_s)) if sample.size else 0.0
+    washout_nm = _washout_thickness(stack, lookup, camera, angle_deg, (t_s, d_s), noise, wide)
     # Uncertainty: colour noise over the local slope of the colour path.
     lab_lut = lookup.lab(camera)
     slope = np.linalg.norm(np.gradient(lab_lut, lookup.thickness_nm, axis=0), axis=1)  # ΔE per nm
-    noise = float(1.4826 * np.median(best_d[ok]))
-    washout_nm = _washout_thickness(stack, lookup, camera, angle_deg, (thickness[ok], best_d[ok]), noise)
-    lut_index = cands.i[cands.key, pick]
-    sigma = np.where(ok, np.maximum(noise, best_d) / np.maximum(slope[lut_index], 1e-3), np.nan)
-    sigma = np.minimum(sigma, period / 2)
-    # Colour residual ΔE00, computed once per (colour, candidate) and then looked up per pixel.
+    sigma_table = np.minimum(np.maximum(noise, d_table) / np.maximum(slope[cands.i], 1e-3), period / 2)
+    # Colour residual ΔE00.
     lab_u = np.vstack([colours.lab, np.zeros((1, 3))])
-    table = delta_E_2000(lab_u[:, None, :], lab_lut[cands.i]).astype(np.float32)
-    residual = np.where(ok, table[cands.key, pick], np.nan)
-    other = np.where(pick == 0, 1, 0).astype(np.int8)
-    second, other_t = cands.take(other, "d"), cands.take(other)
-    flags = np.zeros((H, W), dtype=np.uint8)
-    flags[saturated] |= FLAGS["saturated"]
-    flags[dark] |= FLAGS["dark"]
-    flags[valid & ~has] |= FLAGS["no_match"]
-    ambiguous = ok & np.isfinite(second) & (second < best_d + 1.0) & (np.abs(other_t - thickness) > period / 3) & \
-        (np.abs(thickness - local) > period / 4)
+    residual_table = delta_E_2000(lab_u[:, None, :], lab_lut[cands.i]).astype(np.float32)
+    typical_residual = float(np.median(residual_table.ravel()[sample])) if sample.size else 0.0
+    colour_flags = np.zeros(cands.t.shape, dtype=np.uint8)
     # Continuity chose a candidate that another fringe order clearly out-fits: the colours there
     # cannot tell the orders apart reliably (e.g. a camera the model does not describe well).
-    best_any = cands.d[cands.key, 0]
-    ambiguous |= ok & (best_any < best_d - max(2.0, 2.0 * noise))
-    flags[ambiguous] |= FLAGS["ambiguous"]
-    flags[ok & (np.abs(thickness - local) > period / 3)] |= FLAGS["inconsistent"]
+    colour_flags[d_table[:, :1] < d_table - max(2.0, 2.0 * noise)] |= FLAGS["ambiguous"]
     if washout_nm is not None:
         # Past the limit, or within a period of it with a colour that fits a washed-out thickness
         # about as well as the chosen one (within the colour noise, at least 1 ΔE).
-        past = np.min(np.where(cands.t >= washout_nm, cands.d, np.inf), axis=1)[cands.key]
-        near = (thickness >= washout_nm - period) & (past <= best_d + max(1.0, noise))
-        flags[ok & ((thickness >= washout_nm) | near)] |= FLAGS["washed_out"]
-    typical_residual = float(np.nanmedian(residual[ok])) if ok.any() else 0.0
-    flags[ok & (residual > max(POOR_FIT_MIN_DE, POOR_FIT_FACTOR * typical_residual))] |= FLAGS["poor_fit"]
+        past = np.min(np.where(cands.t >= washout_nm, d_table, np.inf), axis=1, keepdims=True)
+        near = (cands.t >= washout_nm - period) & (past <= d_table + max(1.0, noise))
+        colour_flags[(cands.t >= washout_nm) | near] |= FLAGS["washed_out"]
+    colour_flags[residual_table > max(POOR_FIT_MIN_DE, POOR_FIT_FACTOR * typical_residual)] |= FLAGS["poor_fit"]
+    # Another order fits about as well: ambiguous where the neighbours do not settle it either.
+    other = np.where(np.arange(C) == 0, 1, 0)
+    with np.errstate(invalid="ignore"):  # inf − inf where a colour has no second candidate
+        contested = (d_table[:, other] < d_table + 1.0) & (np.abs(cands.t[:, other] - cands.t) > period / 3)
+    flags = colour_flags.ravel()[flat]
+    off = np.abs(thickness - local)
+    # (Flags are combined arithmetically: far quicker than boolean indexing on large photos.)
+    flags |= (contested.ravel()[flat] & (off > period / 4)).view(np.uint8) * np.uint8(FLAGS["ambiguous"])
+    flags |= (off > period / 3).view(np.uint8) * np.uint8(FLAGS["inconsistent"])
+    del off
+    flags *= ok.view(np.uint8)
+    flags |= saturated.view(np.uint8) * np.uint8(FLAGS["saturated"])
+    flags |= dark.view(np.uint8) * np.uint8(FLAGS["dark"])
+    flags |= (valid & ~has).view(np.uint8) * np.uint8(FLAGS["no_match"])
     # Regions the growth could not join (separate patches of film, or colours that do not continue
     # the film) have fringe orders of their own: flagged unless an anchor ties them; without
     # anchors the largest region is the reference.
-    ids, counts = np.unique(region[ok & (region >= 0)], return_counts=True)
-    tied = {int(region[y, x]) for x, y, _ in anchors} if anchors else set(ids[np.argmax(counts):][:1].tolist())
-    if ids.size:
-        flags[ok & ~np.isin(region, list(tied))] |= FLAGS["unanchored"]
-    order = np.where(ok, lookup.order[lut_index], 0).astype(np.int16)
+    counts = np.bincount(region[::4, ::4][ok[::4, ::4] & (region[::4, ::4] >= 0)].ravel())
+    if counts.size:
+        tied = np.zeros(max(counts.size, int(region.max()) + 1) + 1, dtype=bool)
+        if anchors:
+            tied[[int(region[y, x]) for x, y, _ in anchors]] = True
+        else:
+            tied[int(np.argmax(counts))] = True
+        flags |= (ok & ~tied[region]).view(np.uint8) * np.uint8(FLAGS["unanchored"])
+    # Where the colour path is nearly flat, colour alone cannot place the thickness within the
+    # stretch where it stays as close to the pixel's colour: there the neighbours decide
+    # (the thickness nearest the local reference within that stretch), and σ covers the stretch.
+    # Only on flat stretches (over an eighth of a period) and away from colour edges, so steps
+    # stay sharp.
+    low, high = _colour_stretch(cands, flat, ok, colours.lab, lab_lut, lookup, max(1.0, noise))
+    span = np.nan_to_num(high - low)
+    sigma_table = np.maximum(sigma_table.astype(np.float32).ravel(), span / np.sqrt(12))
+    sigma = np.where(ok, sigma_table[flat], np.nan)
+    slide = np.flatnonzero((span > period / 8)[flat.ravel()])  # missing candidates have no span
+    slide = slide[~_near_colour_edge(colours, slide, (3, 6, 9))]
+    thickness = thickness.ravel()
+    thickness[slide] = np.clip(local.ravel()[slide], low[flat.ravel()[slide]], high[flat.ravel()[slide]])
+    thickness = thickness.reshape(H, W)
+    del low, high, span, slide
+    if washout_nm is not None:
+        flags |= (ok & (thickness >= washout_nm)).view(np.uint8) * np.uint8(FLAGS["washed_out"])
+    residual = np.where(ok, residual_table.ravel()[flat], np.nan)
+    step = float(lookup.thickness_nm[1] - lookup.thickness_nm[0])
+    index = np.clip(np.rint((np.nan_to_num(thickness) - lookup.thickness_nm[0]) / step), 0,
+                    lookup.order.size - 1).astype(np.int32)
+    order = np.where(ok, lookup.order[index], 0).astype(np.int16)
     stats = _statistics(thickness, flags, pixel_size_um)
     calibration.update({"matrix": camera.matrix.round(5).tolist(), "gains": camera.gains.round(5).tolist(),
                         "colour_shift_dE00": round(shift_dE, 3), "colour_noise_dE76": round(noise, 3),
@@ -660,7 +885,8 @@ def _initial_camera(rgb, valid, lookup, reference, self_calibrate, anchors=()):
             gains = np.median(ratios, axis=0)
             return CameraModel(np.diag(gains)), {"method": "self-calibration", "anchor gains": gains.round(4).tolist()}
     # Exposure guess: match the bright end of the photo to the bright end of the colour path.
-    lin = srgb_decode(rgb[valid][::max(1, int(valid.sum()) // 200_000)])  # a subsample is plenty
+    every = max(1, int(np.sqrt(rgb.shape[0] * rgb.shape[1] / 50_000)))  # a subsample is plenty
+    lin = srgb_decode(rgb[::every, ::every][valid[::every, ::every]])
     observed = np.percentile(lin.mean(axis=1), 95)
     predicted = np.percentile(lookup.linear_rgb.mean(axis=1), 95)
     k = float(observed / predicted) if predicted > 0 else 1.0
@@ -673,8 +899,8 @@ def _refit_camera(camera, chosen, has, linear, lookup, full_matrix, anchored=Fal
     sel = np.flatnonzero(good.ravel())
     if sel.size < 50:
         return camera, 0.0, {}
-    if sel.size > 20000:
-        sel = np.random.default_rng(0).choice(sel, 20000, replace=False)
+    if sel.size > 10000:
+        sel = np.random.default_rng(0).choice(sel, 10000, replace=False)
     t = chosen.ravel()[sel]
     bins, inverse, counts = np.unique(np.rint(t / 2), return_inverse=True, return_counts=True)  # 2 nm bins
     # Each thickness bin counts once, so a large uniform area does not dominate the fit.
@@ -711,7 +937,7 @@ def _refit_camera(camera, chosen, has, linear, lookup, full_matrix, anchored=Fal
     return CameraModel(new), shift, {"full_matrix": bool(use_full), **note}
 
 
-def _washout_thickness(stack, lookup, camera, angle_deg=None, fit=None, noise=0.0):
+def _washout_thickness(stack, lookup, camera, angle_deg=None, fit=None, noise=0.0, wide=None):
     """Thickness from which colours no longer vary enough to read (None if beyond the range).
 
     The colour path, from 0 nm to one period past the user's range, is
@@ -722,13 +948,14 @@ def _washout_thickness(stack, lookup, camera, angle_deg=None, fit=None, noise=0.
     the photo there (the median colour distance of the pixels assigned
     nearby, ``fit`` = (thickness, ΔE76) per pixel; the photo's ``noise``
     where too few pixels say): neighbouring orders then look alike to this
-    camera, and pixels past it are flagged instead of guessed.
+    camera, and pixels past it are flagged instead of guessed. ``wide``: a
+    lookup already covering that span, if there is one.
     """
     from scipy.ndimage import maximum_filter1d, uniform_filter1d
 
     top = float(lookup.thickness_nm[-1]) + lookup.period_nm
-    wide = lookup if lookup.thickness_nm[0] == 0 and lookup.thickness_nm[-1] >= top else \
-        build_lookup(stack, (0.0, top), 0.5, angle_deg)
+    if wide is None or wide.thickness_nm[0] != 0 or wide.thickness_nm[-1] < top - 1.0:
+        wide = build_lookup(stack, (0.0, top), 0.5, angle_deg)
     lab = wide.lab(camera)
     t = wide.thickness_nm
     n = max(3, int(round(wide.period_nm / (t[1] - t[0]))))
@@ -737,9 +964,8 @@ def _washout_thickness(stack, lookup, camera, angle_deg=None, fit=None, noise=0.
     misfit = np.full(t.shape, noise)
     if fit is not None and fit[0].size:
         # Median misfit of the pixels within half a period, on a grid of eighth periods.
-        step = max(1, fit[0].size // 200_000)
-        order = np.argsort(fit[0][::step])
-        ft, fd = fit[0][::step][order], fit[1][::step][order]
+        order = np.argsort(fit[0])
+        ft, fd = fit[0][order], fit[1][order]
         half = wide.period_nm / 2
         for c in np.arange(0.0, t[-1] + half / 4, half / 4):
             a, b = np.searchsorted(ft, [c - half, c + half])
