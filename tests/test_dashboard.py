@@ -107,3 +107,20 @@ def test_colour_charts_swatch_from_chart():
     assert not at.exception and not at.error
     table = at.dataframe[0].value
     assert abs(table.iloc[0, 1] - 120) <= 1 and table.iloc[0, 2] < 0.01  # the swatch itself, ΔE ≈ 0
+
+
+def test_clicks_and_boxes_on_the_photo_become_pixels():
+    # The selection Streamlit reports for a Plotly chart (points clicked, boxes dragged).
+    from filmcalc.ui.common import pick_grid, picked_pixel, picked_rectangle
+
+    click = {"points": [{"x": 150, "y": 90, "point_index": 3}], "point_indices": [3], "box": [], "lasso": []}
+    assert picked_pixel(click, 300, 200) == (150, 90)
+    assert picked_rectangle(click, 300, 200) is None
+    box = {"points": [{"x": 1, "y": 1}, {"x": 4, "y": 4}], "box": [{"x": [90.4, 52.2], "y": [37.6, 73.1]}]}
+    assert picked_rectangle(box, 300, 200) == (52, 38, 90, 73)
+    assert picked_pixel(box, 300, 200) is None  # the points inside a box are not a click
+    assert picked_rectangle({"box": [{"x": [-20, 500], "y": [150, 260]}]}, 300, 200) == (0, 150, 299, 199)
+    assert picked_pixel({"points": [{"x": 400, "y": 5}]}, 300, 200) is None  # off the photo
+    assert picked_pixel(None, 300, 200) is None and picked_rectangle({}, 300, 200) is None
+    grid = pick_grid(4000, 6000, cells=200)
+    assert len(grid.x) <= 201 * 201 and max(grid.x) < 6000 and max(grid.y) < 4000

@@ -133,3 +133,38 @@ def cached_reflectance_map(text, base_dir, thickness_range, angle_deg, na):
     stack = loads_stack(text, base_dir=base_dir)
     return reflectance_sweep(stack, np.arange(380.0, 781.0, 2.0), np.linspace(*thickness_range), [angle_deg],
                              numerical_aperture=na)
+
+
+def pick_grid(height, width, cells=100):
+    """An invisible scatter of points over an image, so clicks and box selections on it report pixels.
+
+    One point every few pixels (at most ``cells`` a side); hovering shows the pixel.
+    """
+    import plotly.graph_objects as go
+
+    step = max(1, int(np.ceil(max(height, width) / cells)))
+    ys, xs = np.mgrid[0:height:step, 0:width:step]
+    return go.Scattergl(x=xs.ravel(), y=ys.ravel(), mode="markers", marker={"size": 10, "opacity": 0},
+                        hovertemplate="x %{x}, y %{y}<extra></extra>", showlegend=False, name="pixels")
+
+
+def picked_pixel(selection, width, height):
+    """The (x, y) pixel of a single clicked point in a Plotly selection, or None."""
+    points = (selection or {}).get("points") or []
+    if len(points) != 1 or (selection or {}).get("box"):
+        return None
+    x, y = int(round(points[0]["x"])), int(round(points[0]["y"]))
+    return (x, y) if 0 <= x < width and 0 <= y < height else None
+
+
+def picked_rectangle(selection, width, height):
+    """The (x0, y0, x1, y1) pixel rectangle (inclusive, clipped to the image) of a box selection, or None."""
+    boxes = (selection or {}).get("box") or []
+    if not boxes:
+        return None
+    xs, ys = boxes[-1].get("x") or [], boxes[-1].get("y") or []
+    if len(xs) < 2 or len(ys) < 2:
+        return None
+    x0, x1 = (int(np.clip(round(v), 0, width - 1)) for v in (min(xs), max(xs)))
+    y0, y1 = (int(np.clip(round(v), 0, height - 1)) for v in (min(ys), max(ys)))
+    return x0, y0, x1, y1

@@ -12,7 +12,8 @@ from filmcalc import io as fio
 from filmcalc.charts import calibration_figure, map_figure
 from filmcalc.errors import FilmcalcError
 from filmcalc.thickness import FLAG_MEANINGS, FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded, thickness_map
-from filmcalc.ui.common import DEMO_DIR, cautions_box, demo_stacks, load_or_stop, stack_picker
+from filmcalc.ui.common import (DEMO_DIR, cautions_box, demo_stacks, load_or_stop, pick_grid, picked_pixel,
+                                picked_rectangle, stack_picker)
 
 PHOTO_DIR = DEMO_DIR / "photos"
 
@@ -59,6 +60,28 @@ if photo.greyscale:
     st.stop()
 H, W = photo.shape
 
+# Anchors and the reference region can be set by clicking or box-selecting on the photo. The
+# chart's selection is read here, before the widgets it fills in are drawn on this run.
+anchor_key, version_key, pick_key = f"anchor_list::{photo_name}", f"anchor_version::{photo_name}", f"pick::{photo_name}"
+if anchor_key not in st.session_state:
+    st.session_state[anchor_key] = [{"x": a[0], "y": a[1], "thickness (nm)": a[2]} for a in settings.get("anchors", [])]
+    st.session_state[version_key] = 0
+selection = (st.session_state.get(pick_key) or {}).get("selection")
+signature = repr(selection)
+if selection and st.session_state.get(pick_key + "_seen") != signature:
+    st.session_state[pick_key + "_seen"] = signature
+    clicked, box = picked_pixel(selection, W, H), picked_rectangle(selection, W, H)
+    if clicked:
+        # The table starts afresh (a new key) from what it showed, plus the clicked pixel.
+        shown = st.session_state.get(anchor_key + "_shown", st.session_state[anchor_key])
+        st.session_state[anchor_key] = list(shown) + [
+            {"x": clicked[0], "y": clicked[1], "thickness (nm)": st.session_state.get(f"next_nm::{photo_name}", 0.0)}]
+        st.session_state[version_key] += 1
+    elif box:
+        st.session_state[f"useref::{photo_name}"] = True
+        for i, v in enumerate(box):
+            st.session_state[f"ref{i}::{photo_name}"] = float(v)
+
 with st.sidebar:
     st.header("What you know")
     lo_default, hi_default = settings.get("range", [0, 1500])
@@ -69,34 +92,44 @@ with st.sidebar:
     trend = st.selectbox("Film gets thicker towards", trend_options,
                          index=trend_options.index(settings.get("trend") or "not known"), key=f"trend::{photo_name}")
     pixel = st.number_input("Pixel size (µm, 0 = unknown)", 0.0, 10000.0, 0.0, 0.1, key=f"px::{photo_name}")
-    st.caption("Anchors: pixels of known thickness (x, y in pixels; thickness in nm).")
-    anchors_rows = st.data_editor([{"x": a[0], "y": a[1], "thickness (nm)": a[2]} for a in settings.get("anchors", [])],
-                                  num_rows="dynamic", key=f"anchors::{photo_name}",
+    st.caption("Anchors: pixels of known thickness (x, y in pixels; thickness in nm). Click the photo to add one "
+               "with the thickness below, or edit the table.")
+    st.number_input("Thickness at the next clicked pixel (nm)", 0.0, 50000.0, 0.0, 1.0, key=f"next_nm::{photo_name}")
+    anchors_rows = st.data_editor(st.session_state[anchor_key], num_rows="dynamic",
+                                  key=f"anchors::{photo_name}::{st.session_state[version_key]}",
                                   column_config={"x": st.column_config.NumberColumn(min_value=0, step=1),
                                                  "y": st.column_config.NumberColumn(min_value=0, step=1)})
+    st.session_state[anchor_key + "_shown"] = anchors_rows  # edits included: what a click adds to
     ref_default = settings.get("reference")
-    use_ref = st.checkbox("Reference region of known thickness (sets the camera's gains)", ref_default is not None,
-                          key=f"useref::{photo_name}")
+    use_ref = st.checkbox("Reference region of known thickness (sets the camera's gains; drag a box on the photo)",
+                          ref_default is not None, key=f"useref::{photo_name}")
     reference = None
     if use_ref:
         r = ref_default or [0, 0, min(20, W - 1), min(20, H - 1), 0.0]
         cols = st.columns(5)
         labels = ["x0", "y0", "x1", "y1", "nm"]
-        reference = [cols[i].number_input(labels[i], value=float(r[i]), key=f"ref{i}::{photo_name}")
-                     for i in range(5)]
+        for i in range(5):
+            st.session_state.setdefault(f"ref{i}::{photo_name}", float(r[i]))
+        reference = [cols[i].number_input(labels[i], key=f"ref{i}::{photo_name}") for i in range(5)]
 
-fig = go.Figure(go.Image(z=np.rint(photo.rgb * 255).astype(np.uint8),
-                         hovertemplate="x %{x}, y %{y}<extra></extra>"))
+shown = max(1, int(np.ceil(max(H, W) / 1200)))  # a large photo is shown at up to 1200 px a side
+fig = go.Figure([go.Image(z=np.rint(photo.rgb[::shown, ::shown] * 255).astype(np.uint8), dx=shown, dy=shown,
+                          hoverinfo="skip"), pick_grid(H, W, cells=200)])
 for row in anchors_rows:
     if row.get("x") is not None and row.get("y") is not None:
         fig.add_trace(go.Scatter(x=[row["x"]], y=[row["y"]], mode="markers+text", text=[f"{row.get('thickness (nm)')} nm"],
                                  textposition="top center", marker={"symbol": "x", "size": 10, "color": "white"},
+                                 textfont={"color": "white", "size": 13, "shadow": "1px 1px 2px black"},
                                  showlegend=False, hoverinfo="skip"))
 if reference:
     x0, y0, x1, y1, _ = reference
     fig.add_shape(type="rect", x0=x0, y0=y0, x1=x1, y1=y1, line={"color": "white", "dash": "dot"})
-fig.update_layout(height=360, margin={"l": 0, "r": 0, "t": 10, "b": 0}, title=None)
-st.plotly_chart(fig, width="stretch")
+fig.update_layout(height=380, margin={"l": 0, "r": 0, "t": 10, "b": 0}, title=None, dragmode="zoom",
+                  xaxis={"range": [-0.5, W - 0.5], "showgrid": False},
+                  yaxis={"range": [H - 0.5, -0.5], "showgrid": False, "scaleanchor": "x"})
+st.plotly_chart(fig, width="stretch", on_select="rerun", selection_mode=("points", "box"), key=pick_key)
+st.caption("Click the photo to add an anchor there (drag to zoom in first, double-click to zoom out). To set the "
+           "reference region, pick the box-select tool (dotted square, top right) and drag a box.")
 
 if st.button("Compute the thickness map", type="primary", key="photo_run"):
     try:
