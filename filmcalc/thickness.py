@@ -80,7 +80,7 @@ from .colour import (_D65_XY, _XYZ_TO_SRGB, XYZ_to_Lab, _adaptation_matrix, _xy_
 from .errors import FilmcalcError
 
 __all__ = ["ColourLookup", "build_lookup", "CameraModel", "thickness_map", "ThicknessMap", "FLAGS", "FLAG_MEANINGS",
-           "TRENDS", "lab_of_encoded"]
+           "TRENDS", "lab_of_encoded", "line_profile"]
 
 FLAGS = {"saturated": 1, "dark": 2, "no_match": 4, "ambiguous": 8, "unanchored": 16, "inconsistent": 32,
          "washed_out": 64, "poor_fit": 128}
@@ -977,6 +977,29 @@ def _washout_thickness(stack, lookup, camera, angle_deg=None, fit=None, noise=0.
         return None
     limit = float(t[np.argmax(unreadable)])
     return None if limit > lookup.thickness_nm[-1] else limit
+
+
+def line_profile(values, x0, y0, x1, y1):
+    """Values along the straight line from pixel (x0, y0) to (x1, y1), one sample per pixel of length.
+
+    Each sample takes its nearest pixel (no interpolation, so steps stay steps).
+
+    Returns
+    -------
+    distance_px, samples : numpy.ndarray
+        Distance from (x0, y0) in pixels, and the values there.
+    """
+    values = np.asarray(values)
+    H, W = values.shape[:2]
+    for x, y in ((x0, y0), (x1, y1)):
+        if not (0 <= x < W and 0 <= y < H):
+            raise FilmcalcError(f"The line's end ({x}, {y}) lies outside the {W} × {H} map.")
+    length = float(np.hypot(x1 - x0, y1 - y0))
+    n = max(2, int(np.ceil(length)) + 1)
+    f = np.linspace(0.0, 1.0, n)
+    xs = np.rint(x0 + f * (x1 - x0)).astype(int)
+    ys = np.rint(y0 + f * (y1 - y0)).astype(int)
+    return f * length, values[ys, xs]
 
 
 def _statistics(thickness, flags, pixel_size_um):

@@ -182,3 +182,16 @@ def test_steep_wedge_with_a_non_colorimetric_camera():
     covered = np.isfinite(result.thickness_nm) & (result.flags == 0)
     assert covered.mean() > 0.8
     assert np.mean(np.abs(result.thickness_nm - truth)[covered] > 25) < 0.02
+
+
+def test_line_profile():
+    from filmcalc.thickness import line_profile
+
+    values = np.arange(20.0)[None, :].repeat(10, axis=0)  # value = x
+    distance, samples = line_profile(values, 2, 5, 12, 5)
+    assert distance[0] == 0 and distance[-1] == pytest.approx(10.0)
+    assert samples.tolist() == list(range(2, 13))
+    distance, samples = line_profile(values, 0, 0, 9, 9)  # a diagonal, one sample per pixel of length
+    assert distance[-1] == pytest.approx(np.hypot(9, 9)) and samples.size == 14 and samples[-1] == 9
+    with pytest.raises(FilmcalcError, match="outside"):
+        line_profile(values, 0, 0, 25, 3)

@@ -11,7 +11,8 @@ import streamlit as st
 from filmcalc import io as fio
 from filmcalc.charts import calibration_figure, map_figure
 from filmcalc.errors import FilmcalcError
-from filmcalc.thickness import FLAG_MEANINGS, FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded, thickness_map
+from filmcalc.thickness import (FLAG_MEANINGS, FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded,
+                                line_profile, thickness_map)
 from filmcalc.ui.common import (DEMO_DIR, cautions_box, demo_stacks, load_or_stop, pick_grid, picked_pixel,
                                 picked_rectangle, stack_picker)
 
@@ -191,17 +192,20 @@ with tabs[4]:
     st.caption("If the grey cloud of photo colours does not follow the solid path, the stack, the light or the "
                "camera correction is off.")
 with tabs[5]:
-    axis = st.radio("Profile along", ["row", "column"], horizontal=True, key="profile_axis")
-    index = st.slider("Row (y)" if axis == "row" else "Column (x)", 0, (H if axis == "row" else W) - 1,
-                      (H if axis == "row" else W) // 2, key="profile_index")
-    values = result.thickness_nm[index] if axis == "row" else result.thickness_nm[:, index]
-    sig = result.sigma_nm[index] if axis == "row" else result.sigma_nm[:, index]
-    pos = np.arange(values.size) * (scale or 1)
+    st.caption("A line between two pixels (x, y from the top-left); values are the nearest pixel's, so steps "
+               "stay steps.")
+    c = st.columns(4)
+    ends = [c[i].number_input(label, 0, (W if i % 2 == 0 else H) - 1, value, 1, key=f"line{i}::{photo_name}")
+            for i, (label, value) in enumerate((("x0", 0), ("y0", H // 2), ("x1", W - 1), ("y1", H // 2)))]
+    distance, values = line_profile(result.thickness_nm, *ends)
+    sig = line_profile(result.sigma_nm, *ends)[1]
+    pos = distance * (scale or 1)
     prof = go.Figure([go.Scatter(x=pos, y=values + sig, line={"width": 0}, showlegend=False, hoverinfo="skip"),
                       go.Scatter(x=pos, y=values - sig, fill="tonexty", line={"width": 0}, name="±1σ",
                                  hoverinfo="skip"),
                       go.Scatter(x=pos, y=values, name="thickness", line={"color": "black"})])
-    prof.update_layout(height=320, xaxis_title="position (µm)" if scale else "position (px)",
+    prof.update_layout(height=320, xaxis_title="distance along the line (µm)" if scale else
+                       "distance along the line (px)",
                        yaxis_title="thickness (nm)", margin={"l": 10, "r": 10, "t": 20, "b": 10})
     st.plotly_chart(prof, width="stretch")
     good = result.thickness_nm[np.isfinite(result.thickness_nm)]
