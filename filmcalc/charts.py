@@ -294,6 +294,100 @@ def map_figure(values, title, label, colorscale="cividis", zmin=None, zmax=None,
     return fig
 
 
+def spectrum_fit_figure(fit, title=None):
+    """Measured spectrum and best model (top), residuals (bottom), reflectance in percent."""
+    from plotly.subplots import make_subplots
+
+    fig = make_subplots(rows=2, cols=1, shared_xaxes=True, row_heights=[0.72, 0.28], vertical_spacing=0.06)
+    fig.add_trace(go.Scatter(x=fit.wavelength_nm, y=100 * fit.data, mode="markers", name="measured",
+                             marker={"size": 4, "color": "#555"},
+                             hovertemplate="λ %{x:.1f} nm<br>R %{y:.2f} %<extra>measured</extra>"), 1, 1)
+    fig.add_trace(go.Scatter(x=fit.wavelength_nm, y=100 * fit.model, mode="lines", name=f"model, {fit.thickness_nm:.1f} nm",
+                             line={"width": 2.5, "color": "#1f77b4"},
+                             hovertemplate="λ %{x:.1f} nm<br>R %{y:.2f} %<extra>model</extra>"), 1, 1)
+    fig.add_trace(go.Scatter(x=fit.wavelength_nm, y=100 * (fit.data - fit.model), mode="markers", name="residual",
+                             marker={"size": 3, "color": "#d62728"}, showlegend=False,
+                             hovertemplate="λ %{x:.1f} nm<br>%{y:.3f} %<extra>residual</extra>"), 2, 1)
+    fig.update_yaxes(title_text="reflectance (%)", row=1, col=1)
+    fig.update_yaxes(title_text="data − model (%)", row=2, col=1)
+    fig.update_xaxes(title_text="wavelength (nm)", row=2, col=1)
+    fig.update_layout(title=title or f"Fit: {fit.thickness_nm:.2f} ± {fit.sigma_nm:.2f} nm, reduced χ² "
+                      f"{fit.reduced_chi2:.2f}", height=480, margin={"l": 10, "r": 10, "t": 50, "b": 10},
+                      legend={"orientation": "h", "y": 1.08})
+    return fig
+
+
+def fit_landscape_figure(fit, title=None):
+    """Goodness of fit (reduced χ², log scale) over the thickness range, best and other minima marked."""
+    fig = go.Figure(go.Scatter(x=fit.landscape_nm, y=fit.landscape_chi2, mode="lines", name="reduced χ²",
+                               hovertemplate="%{x:.1f} nm<br>χ²ᵣ %{y:.3g}<extra></extra>"))
+    fig.add_trace(go.Scatter(x=[fit.thickness_nm], y=[max(fit.reduced_chi2, 1e-3)], mode="markers", name="best fit",
+                             marker={"size": 11, "symbol": "star", "color": "#d62728"}))
+    if fit.alternatives:
+        fig.add_trace(go.Scatter(x=[a["thickness_nm"] for a in fit.alternatives],
+                                 y=[a["reduced_chi2"] for a in fit.alternatives], mode="markers",
+                                 name="other minima", marker={"size": 8, "symbol": "circle-open", "color": "#444"}))
+    fig.update_layout(title=title or "Goodness of fit over the thickness range", xaxis_title="film thickness (nm)",
+                      yaxis_title="reduced χ²", yaxis_type="log", height=360,
+                      margin={"l": 10, "r": 10, "t": 50, "b": 10}, legend={"orientation": "h", "y": -0.25})
+    return fig
+
+
+def spectrum_map_figure(result, unit="mm", title=None):
+    """Thickness at each measured point over an interpolated contour map (plotly)."""
+    fig = go.Figure()
+    x, y, t = result.x, result.y, result.thickness_nm
+    if x.size >= 4:
+        from scipy.interpolate import griddata
+
+        gx = np.linspace(x.min(), x.max(), 120)
+        gy = np.linspace(y.min(), y.max(), 120)
+        grid = griddata((x, y), t, (gx[None, :], gy[:, None]), method="linear")
+        fig.add_trace(go.Contour(x=gx, y=gy, z=grid, colorscale="cividis", colorbar={"title": "nm"},
+                                 contours={"showlabels": True}, hoverinfo="skip", opacity=0.85,
+                                 zmin=np.nanmin(t), zmax=np.nanmax(t)))
+    fig.add_trace(go.Scatter(x=x, y=y, mode="markers", name="measured points",
+                             marker={"size": 8, "color": t, "colorscale": "cividis", "cmin": np.nanmin(t),
+                                     "cmax": np.nanmax(t), "line": {"width": 1, "color": "white"},
+                                     "symbol": np.where(result.ambiguous, "x", "circle")},
+                             customdata=np.column_stack([result.sigma_nm, result.reduced_chi2]),
+                             hovertemplate=f"x %{{x:.3g}} {unit}, y %{{y:.3g}} {unit}<br>%{{marker.color:.2f}} ± "
+                                           "%{customdata[0]:.2f} nm<br>χ²ᵣ %{customdata[1]:.2f}<extra></extra>"))
+    st = result.statistics
+    fig.update_layout(title=title or f"Thickness map: mean {st['mean_nm']:.2f} nm, non-uniformity "
+                      f"{st['nonuniformity_pct']:.2f} %", xaxis_title=f"x ({unit})", yaxis_title=f"y ({unit})",
+                      height=520, margin={"l": 10, "r": 10, "t": 50, "b": 10}, showlegend=False)
+    fig.update_yaxes(scaleanchor="x", scaleratio=1)
+    return fig
+
+
+def spectrum_map_figure_image(result, title, path, unit="mm"):
+    """The map of spectra as a PNG (matplotlib): filled contours, the points, a colour bar and the statistics."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(6.4, 5.6), dpi=150)
+    x, y, t = result.x, result.y, result.thickness_nm
+    if x.size >= 4:
+        filled = ax.tricontourf(x, y, t, levels=14, cmap="cividis")
+    else:
+        filled = None
+    points = ax.scatter(x, y, c=t, cmap="cividis", edgecolors="white", linewidths=0.6, s=28)
+    fig.colorbar(filled or points, ax=ax, label="thickness (nm)")
+    ax.set_aspect("equal")
+    ax.set_xlabel(f"x ({unit})")
+    ax.set_ylabel(f"y ({unit})")
+    st = result.statistics
+    ax.set_title(f"{title}\nmean {st['mean_nm']:.2f} nm, σ {st['std_nm']:.2f} nm, range {st['range_nm']:.2f} nm, "
+                 f"non-uniformity {st['nonuniformity_pct']:.2f} %", fontsize=9)
+    fig.text(0.01, 0.01, f"filmcalc {__version__}: thickness from reflectance spectra; confirm values that matter "
+             "independently.", fontsize=6, color="#555")
+    fig.savefig(path, bbox_inches="tight")
+    plt.close(fig)
+
+
 def _stack_summary(stack, film_label):
     parts = [stack.ambient.name]
     for layer in stack.layers:

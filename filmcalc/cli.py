@@ -24,6 +24,17 @@ map PHOTO STACK.toml --out FILE(.npy|.tiff|.csv|.png) [--range MIN:MAX] [--ancho
     top-left, in pixels; the reference rectangle's corners are inclusive). A
     provenance record FILE.json is written beside the map.
 
+fit SPECTRUM.csv STACK.toml [--range MIN:MAX] [--fit thickness|thickness,cauchy|thickness,layer:K]
+    [--window A:B] [--baseline none|offset|scale+offset] [--scale auto|percent|fraction] [--json]
+    Thickness of the unknown film from a reflectance spectrum (CSV/TSV of
+    wavelength and reflectance, or sample/reference/dark counts).
+
+fit-map INPUT STACK.toml --out FILE.csv|.png [--positions CSV] [--range MIN:MAX] [--window A:B]
+        [--baseline ...] [--json]
+    Every spectrum of a mapping run (a long CSV x, y, wavelength, reflectance, or
+    a folder of spectra with positions.csv: file, x, y) → thickness per point and
+    the uniformity figures.
+
 Errors a user can cause print one line to stderr and exit with status 2;
 material warnings go to stderr and do not change the output.
 """
@@ -277,6 +288,78 @@ def _map(args):
                   f"{record['seconds']:.1f} s")
 
 
+def _fit(args):
+    from .spectra import fit_spectrum, read_spectrum
+
+    stack = _film_stack(args.stack)
+    spectrum = read_spectrum(args.spectrum, scale=args.scale)
+    window = parse_range(args.window, "--window", 2) if args.window else None
+    result = fit_spectrum(spectrum, stack, parse_range(args.range, "--range", 2), fit=args.fit, window_nm=window,
+                          baseline=args.baseline)
+    summary = {"spectrum": spectrum.name, "stack": stack.name, "notes": spectrum.notes, **result.summary()}
+    if args.json:
+        print(json.dumps(summary, indent=1))
+        return
+    for note in spectrum.notes:
+        print(f"note: {note}", file=sys.stderr)
+    _warn(result.warnings)
+    print(f"thickness {result.thickness_nm:.2f} ± {result.sigma_nm:.2f} nm (1σ); reduced χ² {result.reduced_chi2:.2f}; "
+          f"{result.wavelength_nm.size} points, {result.wavelength_nm[0]:g}–{result.wavelength_nm[-1]:g} nm")
+    for name, (value, sigma) in result.parameters.items():
+        if name != "thickness_nm":
+            print(f"  {name} = {value:.6g} ± {sigma:.2g}")
+    for alt in result.alternatives[:3]:
+        print(f"  another minimum: {alt['thickness_nm']:.1f} nm (reduced χ² {alt['reduced_chi2']:.1f})")
+    if result.fft_thickness_nm is not None:
+        print(f"  fringe-frequency estimate: {result.fft_thickness_nm:.0f} ± {result.fft_resolution_nm:.0f} nm")
+
+
+def _fit_map(args):
+    from pathlib import Path
+
+    from .charts import spectrum_map_figure_image
+    from .spectra import fit_map, read_spectrum_map
+
+    stack = _film_stack(args.stack)
+    out = Path(args.out)
+    if out.suffix.lower() not in (".csv", ".png"):
+        raise FilmcalcError("--out must end in .csv (one row per point) or .png (the map).")
+    smap = read_spectrum_map(args.input, positions=args.positions, scale=args.scale)
+    window = parse_range(args.window, "--window", 2) if args.window else None
+
+    def progress(fraction, message):
+        if not args.json:
+            print(f"\r[{'#' * int(20 * fraction):<20}] {message:<40}", end="", file=sys.stderr, flush=True)
+
+    result = fit_map(smap, stack, parse_range(args.range, "--range", 2), window_nm=window, baseline=args.baseline,
+                     progress=progress)
+    if not args.json:
+        print(file=sys.stderr)
+    if out.suffix.lower() == ".csv":
+        with open(out, "w", newline="", encoding="utf-8") as f:
+            w = csv.writer(f)
+            w.writerow(["x", "y", "thickness_nm", "sigma_nm", "reduced_chi2", "ambiguous"])
+            for row in zip(result.x, result.y, result.thickness_nm, result.sigma_nm, result.reduced_chi2,
+                           result.ambiguous):
+                w.writerow([f"{row[0]:g}", f"{row[1]:g}", f"{row[2]:.3f}", f"{row[3]:.4f}", f"{row[4]:.3f}",
+                            int(row[5])])
+    else:
+        spectrum_map_figure_image(result, f"{stack.name}: {smap.name}", out)
+    summary = {"input": smap.name, "stack": stack.name, "points": int(result.x.size), "statistics": result.statistics,
+               "ambiguous_points": int(result.ambiguous.sum()), "notes": smap.notes, "warnings": result.warnings,
+               "seconds": round(result.seconds, 3), "output": str(out)}
+    if args.json:
+        print(json.dumps(summary, indent=1))
+        return
+    for note in smap.notes:
+        print(f"note: {note}", file=sys.stderr)
+    _warn(result.warnings)
+    st = result.statistics
+    print(f"wrote {out}: {st['points']} points, mean {st['mean_nm']:.2f} nm, σ {st['std_nm']:.2f} nm, "
+          f"{st['min_nm']:.2f}–{st['max_nm']:.2f} nm, non-uniformity {st['nonuniformity_pct']:.2f} % "
+          f"((max − min) / 2·mean); {result.seconds:.2f} s")
+
+
 def _add_colour_options(p):
     p.add_argument("--exposure", type=float, default=1.0, help="exposure factor (default 1)")
     p.add_argument("--observer", choices=("2", "10"), default="2", help="CIE 1931 2° or 1964 10° observer")
@@ -339,7 +422,35 @@ def build_parser():
     tp.add_argument("--pixel-size", type=float, help="µm per pixel")
     tp.add_argument("--json", action="store_true", help="print the summary record as JSON")
     tp.set_defaults(run=_map)
+
+    fp = sub.add_parser("fit", help="reflectance spectrum → film thickness")
+    fp.add_argument("spectrum", help="CSV/TSV: wavelength_nm, reflectance (or sample, reference[, dark] counts)")
+    fp.add_argument("stack", help="stack file (TOML)")
+    fp.add_argument("--range", default="0:3000", help="MIN:MAX thickness searched, nm (default 0:3000)")
+    fp.add_argument("--fit", default="thickness", help="thickness, thickness,cauchy or thickness,layer:K")
+    fp.add_argument("--window", help="A:B wavelengths used, nm (default: all)")
+    _add_spectrum_options(fp)
+    fp.add_argument("--json", action="store_true", help="print JSON")
+    fp.set_defaults(run=_fit)
+
+    fm = sub.add_parser("fit-map", help="a mapping run of spectra → thickness per point and uniformity")
+    fm.add_argument("input", help="long CSV (x, y, wavelength, reflectance) or a folder of spectra")
+    fm.add_argument("stack", help="stack file (TOML)")
+    fm.add_argument("--out", required=True, help="FILE.csv (per point) or FILE.png (map)")
+    fm.add_argument("--positions", help="CSV file, x, y for a folder of spectra (default FOLDER/positions.csv)")
+    fm.add_argument("--range", default="0:3000", help="MIN:MAX thickness searched, nm (default 0:3000)")
+    fm.add_argument("--window", help="A:B wavelengths used, nm (default: all)")
+    _add_spectrum_options(fm)
+    fm.add_argument("--json", action="store_true", help="print JSON")
+    fm.set_defaults(run=_fit_map)
     return parser
+
+
+def _add_spectrum_options(p):
+    p.add_argument("--baseline", choices=("none", "offset", "scale+offset"), default="none",
+                   help="free baseline terms between model and data (default none)")
+    p.add_argument("--scale", choices=("auto", "percent", "fraction"), default="auto",
+                   help="reflectance given in percent or as a fraction (default: detected)")
 
 
 def main(argv=None):

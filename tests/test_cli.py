@@ -107,3 +107,34 @@ def test_map_bad_inputs(tmp_path, capsys):
     assert main(["map", photo, OXIDE, "--out", str(tmp_path / "m.txt")]) == 2
     assert main(["map", photo, OXIDE, "--out", str(tmp_path / "m.npy"), "--anchor", "1,2"]) == 2
     assert not (tmp_path / "m.npy").exists()
+
+
+DEMO = Path(__file__).parent.parent / "demo_data"
+
+
+def test_fit_on_the_demo_spectra(capsys):
+    # The demo spectra are rendered from invented truths (demo_data/make_demo_spectra.py): 742.0 and 2430 nm.
+    assert main(["fit", str(DEMO / "spectra" / "oxide-spot.csv"), OXIDE, "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["thickness_nm"] == pytest.approx(742.0, abs=0.5)
+    assert {"sigma_nm", "reduced_chi2", "alternatives"} <= set(out)
+    assert main(["fit", str(DEMO / "spectra" / "resist-counts.csv"), str(DEMO / "resist-wafer.toml"),
+                 "--range", "0:5000"]) == 0
+    text = capsys.readouterr().out
+    assert "2430.0" in text and "fringe-frequency estimate" in text
+
+
+def test_fit_map_on_the_demo_wafer(tmp_path, capsys):
+    out = tmp_path / "wafer.csv"
+    assert main(["fit-map", str(DEMO / "spectra" / "wafer-map.csv"), OXIDE, "--out", str(out), "--json"]) == 0
+    summary = json.loads(capsys.readouterr().out)
+    truth = np.load(DEMO / "spectra" / "wafer-map-truth.npz")
+    rows = np.loadtxt(out, delimiter=",", skiprows=1)
+    assert summary["points"] == 49 and rows.shape == (49, 6)
+    order = [int(np.argmin(np.hypot(rows[:, 0] - x, rows[:, 1] - y))) for x, y in zip(truth["x_mm"], truth["y_mm"])]
+    assert np.max(np.abs(rows[order, 2] - truth["thickness_nm"])) < 0.5
+    assert main(["fit-map", str(DEMO / "spectra" / "wafer-map.csv"), OXIDE, "--out", str(tmp_path / "w.png")]) == 0
+    assert (tmp_path / "w.png").read_bytes()[:4] == b"\x89PNG"
+    assert main(["fit-map", str(DEMO / "spectra" / "wafer-map.csv"), OXIDE, "--out", str(tmp_path / "w.xls")]) == 2
+    assert "--out must end" in capsys.readouterr().err
+    assert main(["fit", str(tmp_path / "missing.csv"), OXIDE]) == 2

@@ -124,3 +124,20 @@ def test_clicks_and_boxes_on_the_photo_become_pixels():
     assert picked_pixel(None, 300, 200) is None and picked_rectangle({}, 300, 200) is None
     grid = pick_grid(4000, 6000, cells=200)
     assert len(grid.x) <= 201 * 201 and max(grid.x) < 6000 and max(grid.y) < 4000
+
+
+def test_spectrum_fit_page_demos_and_bad_upload():
+    at = run_page("spectrum_fit.py")
+    assert not at.exception
+    for name in at.selectbox(key="spec_demo").options:
+        at.selectbox(key="spec_demo").set_value(name).run()
+        assert not at.exception and not at.error, name
+        assert any(m.label == "film thickness" for m in at.metric), name
+    at.selectbox(key="spec_fit").set_value("thickness,cauchy").run()
+    assert not at.exception
+
+
+def test_spectrum_map_page_demo():
+    at = run_page("spectrum_map.py")
+    assert not at.exception and not at.error
+    assert any(m.label == "non-uniformity" for m in at.metric)

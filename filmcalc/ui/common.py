@@ -80,6 +80,14 @@ def stack_picker():
     return path.read_text(encoding="utf-8"), str(path.parent), path.name
 
 
+def choose_demo_stack(stack_file, marker):
+    """Select the demo stack a demo input was made with, once per demo (the user may then pick another)."""
+    stack_name = next((n for n, p in demo_stacks().items() if p.name == stack_file), None)
+    if stack_name and st.session_state.get("demo_stack_marker") != marker:
+        st.session_state["stack_choice_saved"] = st.session_state["stack_choice"] = stack_name
+        st.session_state["demo_stack_marker"] = marker
+
+
 def load_or_stop(text, base_dir, origin, need_film=True):
     """The parsed stack, or an error message on the page and a stop."""
     try:

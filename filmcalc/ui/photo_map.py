@@ -13,7 +13,7 @@ from filmcalc.charts import calibration_figure, map_figure
 from filmcalc.errors import FilmcalcError
 from filmcalc.thickness import (FLAG_MEANINGS, FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded,
                                 line_profile, thickness_map)
-from filmcalc.ui.common import (DEMO_DIR, cautions_box, demo_stacks, load_or_stop, pick_grid, picked_pixel,
+from filmcalc.ui.common import (DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, pick_grid, picked_pixel,
                                 picked_rectangle, stack_picker)
 
 PHOTO_DIR = DEMO_DIR / "photos"
@@ -31,12 +31,10 @@ if source == "demo photo":
     settings = demos[name]
     data, photo_name = (PHOTO_DIR / name).read_bytes(), name
     # Show the demo's own stack unless the user picked another one for it.
-    stack_name = next((n for n, p in demo_stacks().items() if p.name == settings["stack"]), None)
-    if st.session_state.get("photo_demo_last") != name and stack_name:
-        st.session_state["stack_choice_saved"] = st.session_state["stack_choice"] = stack_name
+    if st.session_state.get("photo_demo_last") != name:
+        st.session_state.pop("photo_result", None)
         st.session_state["photo_demo_last"] = name
-        for key in ("photo_result",):
-            st.session_state.pop(key, None)
+    choose_demo_stack(settings["stack"], f"photo::{name}")
     st.caption(f"What the lab knows: {settings['note']}.")
 else:
     upload = st.file_uploader("Photo (PNG, JPEG or TIFF; 8 or 16 bit)", type=["png", "jpg", "jpeg", "tif", "tiff"],

@@ -1,0 +1,97 @@
+"""Spectrum fit page: a measured reflectance spectrum becomes a film thickness with its uncertainty."""
+
+import json
+
+import streamlit as st
+
+from filmcalc.charts import fit_landscape_figure, spectrum_fit_figure
+from filmcalc.errors import FilmcalcError
+from filmcalc.spectra import fit_spectrum, read_spectrum
+from filmcalc.ui.common import DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, stack_picker
+
+SPECTRA_DIR = DEMO_DIR / "spectra"
+# Demo spectrum → the demo stack it was measured on, and the range to search.
+DEMOS = {"oxide-spot.csv": ("oxide-coupon.toml", (0, 3000)), "resist-counts.csv": ("resist-wafer.toml", (0, 5000))}
+
+st.title("Spectrum fit")
+st.write("Load a reflectance spectrum (wavelength and reflectance, or raw sample / reference / dark counts), pick the "
+         "stack it was measured on, and get the film's thickness with its 1σ uncertainty, the fit quality and any "
+         "other thickness that would explain the data.")
+
+source = st.radio("Spectrum", ["demo spectrum", "my spectrum"], horizontal=True, key="spec_source")
+if source == "demo spectrum":
+    name = st.selectbox("Demo spectrum", list(DEMOS), key="spec_demo",
+                        help="Invented samples written by demo_data/make_demo_spectra.py.")
+    data = (SPECTRA_DIR / name).read_bytes()
+    choose_demo_stack(DEMOS[name][0], f"spec::{name}")
+    default_range = DEMOS[name][1]
+else:
+    upload = st.file_uploader("Spectrum (CSV or TSV: wavelength in nm, then reflectance or counts)",
+                              type=["csv", "tsv", "txt"], key="spec_upload")
+    if upload is None:
+        st.info("Upload a spectrum, or pick a demo spectrum above.")
+        cautions_box()
+        st.stop()
+    data, name, default_range = upload.getvalue(), upload.name, (0, 3000)
+
+text, base_dir, origin = stack_picker()
+stack = load_or_stop(text, base_dir, origin)
+
+with st.sidebar:
+    st.header("Fit")
+    c1, c2 = st.columns(2)
+    lo = c1.number_input("Thinnest (nm)", 0.0, 100000.0, float(default_range[0]), 10.0, key=f"spec_lo::{name}")
+    hi = c2.number_input("Thickest (nm)", 1.0, 100000.0, float(default_range[1]), 10.0, key=f"spec_hi::{name}")
+    scale = st.radio("Reflectance given as", ["auto", "percent", "fraction"], horizontal=True, key="spec_scale",
+                     help="auto: values above 1.5 are read as percent.")
+    what = st.selectbox("Free parameters", ["thickness", "thickness,cauchy"], key="spec_fit",
+                        help="thickness,cauchy also fits the film's Cauchy coefficients A, B, C.")
+    baseline = st.selectbox("Baseline", ["none", "offset", "scale+offset"], key="spec_baseline",
+                            help="Lets the model shift (and scale) to absorb a reference or dark-count error.")
+
+try:
+    spectrum = read_spectrum(data, name=name, scale=scale)
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+for note in spectrum.notes:
+    st.caption(f"Note: {note}.")
+wl = spectrum.wavelength_nm
+window = st.slider("Wavelength window (nm)", float(wl[0]), float(wl[-1]), (float(wl[0]), float(wl[-1])), 1.0,
+                   key=f"spec_window::{name}")
+
+try:
+    with st.spinner("Fitting…"):
+        fit = fit_spectrum(spectrum, stack, (lo, hi), fit=what, window_nm=window, baseline=baseline)
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+
+cols = st.columns(4)
+cols[0].metric("film thickness", f"{fit.thickness_nm:.2f} nm")
+cols[1].metric("1σ", f"{fit.sigma_nm:.2g} nm")
+cols[2].metric("reduced χ²", f"{fit.reduced_chi2:.2f}")
+cols[3].metric("rms residual", f"{100 * fit.rms_residual:.2f} %")
+for w in fit.warnings:
+    st.warning(w)
+if fit.fft_thickness_nm is not None:
+    st.info(f"Independent estimate from the fringe frequency: {fit.fft_thickness_nm:.0f} ± "
+            f"{fit.fft_resolution_nm:.0f} nm (FFT of R against 1/λ, group index of the film).")
+st.plotly_chart(spectrum_fit_figure(fit), width="stretch")
+left, right = st.columns([3, 2])
+left.plotly_chart(fit_landscape_figure(fit), width="stretch")
+with right:
+    st.write("**Other minima** (a reduced χ² near the best one means the spectrum cannot tell them apart):")
+    st.dataframe([{"thickness (nm)": round(a["thickness_nm"], 2), "reduced χ²": round(a["reduced_chi2"], 2)}
+                  for a in fit.alternatives] or [{"thickness (nm)": "—", "reduced χ²": "—"}], hide_index=True)
+    if len(fit.parameters) > 1:
+        st.write("**Fitted parameters** (value ± 1σ):")
+        st.dataframe([{"parameter": k, "value": f"{v:.6g}", "1σ": f"{s:.2g}"} for k, (v, s) in fit.parameters.items()],
+                     hide_index=True)
+    record = {"spectrum": name, "stack": stack.name, **fit.summary()}
+    st.download_button("Result (JSON)", json.dumps(record, indent=1), f"{name.rsplit('.', 1)[0]}-fit.json",
+                       key="spec_dl_json")
+    table = "wavelength_nm,data,model\n" + "\n".join(f"{w:.3f},{d:.6f},{m:.6f}"
+                                                    for w, d, m in zip(fit.wavelength_nm, fit.data, fit.model))
+    st.download_button("Data and model (CSV)", table, f"{name.rsplit('.', 1)[0]}-fit.csv", key="spec_dl_csv")
+cautions_box()

@@ -1,0 +1,79 @@
+"""Map of spectra page: a mapping run of reflectance spectra becomes a thickness map and uniformity figures."""
+
+import io
+
+import streamlit as st
+
+from filmcalc.charts import spectrum_map_figure, spectrum_map_figure_image
+from filmcalc.errors import FilmcalcError
+from filmcalc.spectra import fit_map, read_spectrum_map
+from filmcalc.ui.common import DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, stack_picker
+
+DEMOS = {"wafer-map.csv": "oxide-coupon.toml"}
+
+st.title("Map of spectra")
+st.write("Load a mapping run (one CSV with columns x, y, wavelength, reflectance: one row per point and "
+         "wavelength), pick the stack, and get the thickness at every point with the uniformity figures a process "
+         "report needs. Positions keep the file's units (mm in the demo).")
+
+source = st.radio("Mapping run", ["demo run", "my run"], horizontal=True, key="smap_source")
+if source == "demo run":
+    name = st.selectbox("Demo run", list(DEMOS), key="smap_demo",
+                        help="An invented 150 mm wafer written by demo_data/make_demo_spectra.py.")
+    data = (DEMO_DIR / "spectra" / name).read_bytes()
+    choose_demo_stack(DEMOS[name], f"smap::{name}")
+else:
+    upload = st.file_uploader("Mapping run (CSV: x, y, wavelength_nm, reflectance)", type=["csv", "tsv", "txt"],
+                              key="smap_upload")
+    if upload is None:
+        st.info("Upload a mapping run, or pick the demo run above.")
+        cautions_box()
+        st.stop()
+    data, name = upload.getvalue(), upload.name
+
+text, base_dir, origin = stack_picker()
+stack = load_or_stop(text, base_dir, origin)
+with st.sidebar:
+    st.header("Fit")
+    c1, c2 = st.columns(2)
+    lo = c1.number_input("Thinnest (nm)", 0.0, 100000.0, 0.0, 10.0, key="smap_lo")
+    hi = c2.number_input("Thickest (nm)", 1.0, 100000.0, 3000.0, 10.0, key="smap_hi")
+    baseline = st.selectbox("Baseline", ["none", "offset", "scale+offset"], key="smap_baseline")
+    unit = st.text_input("Position unit", "mm", key="smap_unit")
+
+try:
+    smap = read_spectrum_map(data, name=name)
+    bar = st.progress(0.0, "starting")
+    result = fit_map(smap, stack, (lo, hi), baseline=baseline, progress=lambda f, m: bar.progress(min(f, 1.0), m))
+    bar.empty()
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+for note in smap.notes:
+    st.caption(f"Note: {note}.")
+for w in result.warnings:
+    st.warning(w)
+s = result.statistics
+cols = st.columns(6)
+cols[0].metric("points", f"{s['points']}")
+cols[1].metric("mean", f"{s['mean_nm']:.2f} nm")
+cols[2].metric("σ", f"{s['std_nm']:.2f} nm")
+cols[3].metric("min – max", f"{s['min_nm']:.1f}–{s['max_nm']:.1f} nm")
+cols[4].metric("range", f"{s['range_nm']:.2f} nm")
+cols[5].metric("non-uniformity", f"{s['nonuniformity_pct']:.2f} %", help="(max − min) / (2 · mean)")
+st.plotly_chart(spectrum_map_figure(result, unit=unit), width="stretch")
+st.caption(f"{result.seconds:.2f} s for {s['points']} spectra. Crosses mark points where another thickness fits "
+           "almost as well.")
+rows = [{"x": x, "y": y, "thickness (nm)": round(t, 3), "1σ (nm)": round(sg, 4), "reduced χ²": round(c, 2),
+         "ambiguous": bool(a)} for x, y, t, sg, c, a in zip(result.x, result.y, result.thickness_nm, result.sigma_nm,
+                                                             result.reduced_chi2, result.ambiguous)]
+with st.expander("Every point"):
+    st.dataframe(rows, hide_index=True, width="stretch")
+table = "x,y,thickness_nm,sigma_nm,reduced_chi2,ambiguous\n" + "\n".join(
+    f"{r['x']:g},{r['y']:g},{r['thickness (nm)']},{r['1σ (nm)']},{r['reduced χ²']},{int(r['ambiguous'])}" for r in rows)
+png = io.BytesIO()
+spectrum_map_figure_image(result, f"{stack.name}: {name}", png, unit=unit)
+c1, c2 = st.columns(2)
+c1.download_button("Points (CSV)", table, name.rsplit(".", 1)[0] + "-thickness.csv", key="smap_dl_csv")
+c2.download_button("Map (PNG)", png.getvalue(), name.rsplit(".", 1)[0] + "-thickness.png", key="smap_dl_png")
+cautions_box()
