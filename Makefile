@@ -26,6 +26,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_sweep.py
 	$(BIN)/python benchmarks/bench_chart.py
 	$(BIN)/python benchmarks/bench_photo.py
+	$(BIN)/python benchmarks/bench_spectra.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache .hypothesis
