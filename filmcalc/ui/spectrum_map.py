@@ -54,13 +54,11 @@ for note in smap.notes:
 for w in result.warnings:
     st.warning(w)
 s = result.statistics
-cols = st.columns(6)
-cols[0].metric("points", f"{s['points']}")
-cols[1].metric("mean", f"{s['mean_nm']:.2f} nm")
-cols[2].metric("σ", f"{s['std_nm']:.2f} nm")
-cols[3].metric("min – max", f"{s['min_nm']:.1f}–{s['max_nm']:.1f} nm")
-cols[4].metric("range", f"{s['range_nm']:.2f} nm")
-cols[5].metric("non-uniformity", f"{s['nonuniformity_pct']:.2f} %", help="(max − min) / (2 · mean)")
+cols = st.columns(4)
+cols[0].metric("mean", f"{s['mean_nm']:.2f} nm", help=f"over {s['points']} points")
+cols[1].metric("σ", f"{s['std_nm']:.2f} nm")
+cols[2].metric("range", f"{s['range_nm']:.2f} nm", help=f"{s['min_nm']:.2f} to {s['max_nm']:.2f} nm")
+cols[3].metric("non-uniformity", f"{s['nonuniformity_pct']:.2f} %", help="(max − min) / (2 · mean)")
 st.plotly_chart(spectrum_map_figure(result, unit=unit), width="stretch")
 st.caption(f"{result.seconds:.2f} s for {s['points']} spectra. Crosses mark points where another thickness fits "
            "almost as well.")
