@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 from PIL import Image
 
+from filmcalc.colour import srgb_encode
 from filmcalc.optics import reflectance_sweep
 from filmcalc.stack import load_stack
 from filmcalc.synthetic import draining_soap_film, oil_lens
@@ -26,7 +27,7 @@ SHAPE = (200, 300)
 
 
 def intensity(stack, truth, wavelength_nm, peak, rng, noise=0.01):
-    """Camera signal 0–1 under one line: R(d) at the line, scaled so the brightest fringe reads ``peak``."""
+    """Linear camera signal 0–1 under one line: R(d) at the line, scaled so the brightest fringe reads ``peak``."""
     grid = np.arange(0.0, float(truth.max()) + 1.0, 0.25)
     r = reflectance_sweep(stack, [wavelength_nm], grid).reflectance(stack.light.polarisation)[0, :, 0]
     signal = np.interp(truth, grid, r) / r.max() * peak
@@ -40,7 +41,9 @@ def main():
     soap = load_stack(HERE / "soap-film-loop.toml")
     truth = draining_soap_film(SHAPE, black_nm=25, bottom_nm=1100, seed=4)
     grey = intensity(soap, truth, 589.3, 0.85, rng)
-    Image.fromarray(np.rint(grey * 255).astype(np.uint8), mode="L").save(out / "soap-sodium.png", optimize=True)
+    # Saved as a camera saves a photo: sRGB-encoded, 8 bit.
+    Image.fromarray(np.rint(srgb_encode(grey) * 255).astype(np.uint8), mode="L").save(out / "soap-sodium.png",
+                                                                                       optimize=True)
     np.savez_compressed(out / "soap-sodium-truth.npz", thickness_nm=truth.astype(np.float32))
     (out / "soap-sodium.json").write_text(json.dumps({
         "photo": "soap-sodium.png", "stack": "soap-film-loop.toml", "wavelengths_nm": [589.3],
@@ -53,7 +56,7 @@ def main():
     rgb = np.zeros(SHAPE + (3,))
     rgb[..., 0] = intensity(oil, truth, 632.8, 0.9, rng)
     rgb[..., 2] = intensity(oil, truth, 488.0, 0.8, rng)
-    Image.fromarray(np.rint(rgb * 255).astype(np.uint8)).save(out / "oil-two-lines.png", optimize=True)
+    Image.fromarray(np.rint(srgb_encode(rgb) * 255).astype(np.uint8)).save(out / "oil-two-lines.png", optimize=True)
     np.savez_compressed(out / "oil-two-lines-truth.npz", thickness_nm=truth.astype(np.float32))
     (out / "oil-two-lines.json").write_text(json.dumps({
         "photo": "oil-two-lines.png", "stack": "oil-on-water.toml", "wavelengths_nm": [632.8, 488.0],

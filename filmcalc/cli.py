@@ -35,6 +35,14 @@ fit-map INPUT STACK.toml --out FILE.csv|.png [--positions CSV] [--range MIN:MAX]
     a folder of spectra with positions.csv: file, x, y) → thickness per point and
     the uniformity figures.
 
+fringes PHOTO STACK.toml --wavelength NM [--wavelength NM] [--channel red|green|blue|grey]...
+        [--anchor X,Y,NM] [--trend right|left|down|up] [--line X0,Y0,X1,Y1 [--direction thicker|thinner]]
+        [--range MIN:MAX] --out FILE [--json]
+    Monochromatic (or two-wavelength) fringes → thickness. With --line, the
+    thickness along the line by fringe counting from the anchor's thickness at
+    the line's start (--out .csv or .json); otherwise a map (--out .npy, .tiff,
+    .csv or .png, with a .json record beside it).
+
 Errors a user can cause print one line to stderr and exit with status 2;
 material warnings go to stderr and do not change the output.
 """
@@ -311,7 +319,8 @@ def _fit(args):
     for alt in result.alternatives[:3]:
         print(f"  another minimum: {alt['thickness_nm']:.1f} nm (reduced χ² {alt['reduced_chi2']:.1f})")
     if result.fft_thickness_nm is not None:
-        print(f"  fringe-frequency estimate: {result.fft_thickness_nm:.0f} ± {result.fft_resolution_nm:.0f} nm")
+        print(f"  fringe-frequency estimate: {result.fft_thickness_nm:.0f} nm (FFT resolution "
+              f"{result.fft_resolution_nm:.0f} nm)")
 
 
 def _fit_map(args):
@@ -358,6 +367,93 @@ def _fit_map(args):
     print(f"wrote {out}: {st['points']} points, mean {st['mean_nm']:.2f} nm, σ {st['std_nm']:.2f} nm, "
           f"{st['min_nm']:.2f}–{st['max_nm']:.2f} nm, non-uniformity {st['nonuniformity_pct']:.2f} % "
           f"((max − min) / 2·mean); {result.seconds:.2f} s")
+
+
+def _fringes(args):
+    import hashlib
+    import time
+    from pathlib import Path
+
+    from . import io as fio
+    from .fringes import FLAGS, fringe_images, fringe_map, line_profile_thickness
+
+    started = time.perf_counter()
+    stack = _film_stack(args.stack)
+    photo = fio.load_photo(args.photo)
+    wavelengths = args.wavelength
+    if not 1 <= len(wavelengths) <= 2:
+        raise FilmcalcError("Give one or two --wavelength values (nm).")
+    images = fringe_images(photo, wavelengths, args.channel)
+    anchor = None
+    if args.anchor:
+        x, y, t = _numbers(args.anchor, 3, "--anchor X,Y,NM")
+        anchor = (int(x), int(y), t)
+    out = Path(args.out)
+    suffix = out.suffix.lower()
+    record = {"filmcalc_version": __version__, "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+              "photo": {"file": photo.name, "sha256": photo.sha256, "width": photo.shape[1],
+                        "height": photo.shape[0]},
+              "stack": {"file": str(args.stack), "name": stack.name,
+                        "sha256": hashlib.sha256(Path(args.stack).read_bytes()).hexdigest()},
+              "settings": {"wavelengths_nm": wavelengths, "channels": args.channel, "anchor": anchor,
+                           "trend": args.trend, "range_nm": list(parse_range(args.range, "--range", 2))}}
+    if args.line:
+        if suffix not in (".csv", ".json"):
+            raise FilmcalcError("With --line, --out must end in .csv or .json.")
+        if anchor is None:
+            raise FilmcalcError("--line needs --anchor X,Y,NM: the thickness at the line's start.")
+        line = tuple(int(v) for v in _numbers(args.line, 4, "--line X0,Y0,X1,Y1"))
+        profile = line_profile_thickness(images[0], line, wavelengths[0], stack, anchor[2], args.direction,
+                                         encoded=not photo.linear)
+        _warn(profile.warnings)
+        record["settings"].update({"line": list(line), "direction": args.direction})
+        record.update({"period_nm": profile.period_nm, "extrema": len(profile.extrema_px),
+                       "thickness_end_nm": float(profile.thickness_nm[-1]), "warnings": profile.warnings})
+        if suffix == ".csv":
+            with open(out, "w", newline="", encoding="utf-8") as f:
+                w = csv.writer(f)
+                w.writerow(["distance_px", "thickness_nm", "sigma_nm", "intensity"])
+                for row in zip(profile.distance_px, profile.thickness_nm, profile.sigma_nm, profile.intensity):
+                    w.writerow([f"{row[0]:.2f}", f"{row[1]:.2f}", f"{row[2]:.2f}", f"{row[3]:.4f}"])
+        else:
+            record["profile"] = {"distance_px": profile.distance_px.round(2).tolist(),
+                                 "thickness_nm": profile.thickness_nm.round(2).tolist(),
+                                 "sigma_nm": profile.sigma_nm.round(2).tolist()}
+            out.write_text(json.dumps(record, indent=1), encoding="utf-8")
+        record["seconds"] = round(time.perf_counter() - started, 3)
+        if args.json:
+            print(json.dumps({k: v for k, v in record.items() if k != "profile"}, indent=1))
+        else:
+            print(f"wrote {out}: {len(profile.extrema_px)} fringe extrema along the line, "
+                  f"{profile.thickness_nm[0]:.0f} → {profile.thickness_nm[-1]:.0f} nm "
+                  f"(one fringe = {profile.period_nm:.1f} nm)")
+        return
+    if suffix not in (".npy", ".tif", ".tiff", ".csv", ".png"):
+        raise FilmcalcError("--out must end in .npy, .tif, .tiff, .csv or .png.")
+    result = fringe_map(images, stack, wavelengths, anchor=anchor, trend=args.trend,
+                        range_nm=parse_range(args.range, "--range", 2), encoded=not photo.linear)
+    _warn(result.warnings)
+    if suffix == ".npy":
+        fio.save_map_npy(out, result.thickness_nm)
+    elif suffix in (".tif", ".tiff"):
+        fio.save_map_tiff(out, result.thickness_nm, None)
+    elif suffix == ".csv":
+        fio.save_map_csv(out, result.thickness_nm, result.sigma_nm, result.flags)
+    else:
+        fio.save_map_png(out, result.thickness_nm, f"{stack.name}: {photo.name}")
+    record.update({"period_nm": list(result.period_nm), "statistics": result.statistics,
+                   "flags": {name: int(np.count_nonzero(result.flags & bit)) for name, bit in FLAGS.items()},
+                   "warnings": result.warnings, "seconds": round(time.perf_counter() - started, 3),
+                   "output": str(out)})
+    fio.save_provenance(out.with_suffix(".json"), record)
+    if args.json:
+        print(json.dumps(record, indent=1, default=fio._jsonable))
+    else:
+        st = result.statistics
+        print(f"wrote {out} and {out.with_suffix('.json')}")
+        if "mean_nm" in st:
+            print(f"thickness {st['mean_nm']:.1f} ± {st['std_nm']:.1f} nm (mean ± σ over good pixels), "
+                  f"{st['min_nm']:.1f}–{st['max_nm']:.1f} nm; {record['seconds']:.1f} s")
 
 
 def _add_colour_options(p):
@@ -443,6 +539,24 @@ def build_parser():
     _add_spectrum_options(fm)
     fm.add_argument("--json", action="store_true", help="print JSON")
     fm.set_defaults(run=_fit_map)
+
+    fr = sub.add_parser("fringes", help="monochromatic or two-wavelength fringes → thickness")
+    fr.add_argument("photo", help="PNG, JPEG or TIFF photo (greyscale, or colour channels under line light)")
+    fr.add_argument("stack", help="stack file (TOML)")
+    fr.add_argument("--wavelength", type=float, action="append", required=True,
+                    help="vacuum wavelength of the light, nm (give two for two-wavelength fringes)")
+    fr.add_argument("--channel", action="append", choices=("red", "green", "blue", "grey"),
+                    help="which channel shows each wavelength (default: grey for a greyscale photo, else red "
+                         "≥ 580 nm, green ≥ 500 nm, blue below)")
+    fr.add_argument("--anchor", help="X,Y,NM: a pixel of known thickness (for --line: the line's start)")
+    fr.add_argument("--trend", choices=("right", "left", "down", "up"), help="where the film gets thicker")
+    fr.add_argument("--line", help="X0,Y0,X1,Y1: thickness along this line by counting fringes")
+    fr.add_argument("--direction", choices=("thicker", "thinner"), default="thicker",
+                    help="how the film changes along --line (default thicker)")
+    fr.add_argument("--range", default="0:2000", help="MIN:MAX thickness, nm (default 0:2000)")
+    fr.add_argument("--out", required=True, help="map: .npy/.tiff/.csv/.png; line: .csv or .json")
+    fr.add_argument("--json", action="store_true", help="print the summary record as JSON")
+    fr.set_defaults(run=_fringes)
     return parser
 
 

@@ -138,3 +138,32 @@ def test_fit_map_on_the_demo_wafer(tmp_path, capsys):
     assert main(["fit-map", str(DEMO / "spectra" / "wafer-map.csv"), OXIDE, "--out", str(tmp_path / "w.xls")]) == 2
     assert "--out must end" in capsys.readouterr().err
     assert main(["fit", str(tmp_path / "missing.csv"), OXIDE]) == 2
+
+
+def test_fringes_map_and_line_on_the_demo_photos(tmp_path, capsys):
+    # Demo fringe photos are rendered from invented truths (demo_data/make_demo_fringes.py).
+    soap, soap_stack = DEMO / "fringes" / "soap-sodium.png", str(DEMO / "soap-film-loop.toml")
+    out = tmp_path / "soap.npy"
+    assert main(["fringes", str(soap), soap_stack, "--wavelength", "589.3", "--anchor", "150,3,25", "--trend", "down",
+                 "--out", str(out), "--json"]) == 0
+    record = json.loads(capsys.readouterr().out)
+    truth = np.load(DEMO / "fringes" / "soap-sodium-truth.npz")["thickness_nm"]
+    est = np.load(out)
+    good = np.isfinite(est)
+    assert good.mean() > 0.9 and np.median(np.abs(est - truth)[good]) < 15
+    assert record["settings"]["wavelengths_nm"] == [589.3] and (tmp_path / "soap.json").exists()
+    line = tmp_path / "line.csv"
+    assert main(["fringes", str(soap), soap_stack, "--wavelength", "589.3", "--anchor", "150,3,25",
+                 "--line", "150,3,150,196", "--out", str(line)]) == 0
+    rows = np.loadtxt(line, delimiter=",", skiprows=1)
+    assert abs(rows[-1, 1] - truth[196, 150]) < 30
+    two = tmp_path / "oil.npy"
+    assert main(["fringes", str(DEMO / "fringes" / "oil-two-lines.png"), str(DEMO / "oil-on-water.toml"),
+                 "--wavelength", "632.8", "--wavelength", "488", "--range", "0:1000", "--out", str(two)]) == 0
+    oil = np.load(two)
+    oil_truth = np.load(DEMO / "fringes" / "oil-two-lines-truth.npz")["thickness_nm"]
+    assert np.median(np.abs(oil - oil_truth)[np.isfinite(oil)]) < 15
+    capsys.readouterr()
+    assert main(["fringes", str(soap), soap_stack, "--wavelength", "589.3", "--line", "0,0,5,5",
+                 "--out", str(tmp_path / "x.csv")]) == 2
+    assert "--line needs --anchor" in capsys.readouterr().err

@@ -141,3 +141,20 @@ def test_spectrum_map_page_demo():
     at = run_page("spectrum_map.py")
     assert not at.exception and not at.error
     assert any(m.label == "non-uniformity" for m in at.metric)
+
+
+def test_fringes_page_demos_map_and_line():
+    at = run_page("fringe_analysis.py", timeout=120)
+    assert not at.exception
+    for name in at.selectbox(key="fr_demo").options:
+        at.selectbox(key="fr_demo").set_value(name).run()
+        assert not at.exception, name
+        at.button(key="fr_run").click().run()
+        assert not at.exception and not at.error, name
+        assert any(m.label == "flagged pixels" for m in at.metric), name
+    name = at.selectbox(key="fr_demo").options[0]
+    at.selectbox(key="fr_demo").set_value(name).run()
+    at.radio(key=f"fr_mode::{name}").set_value("along a line").run()
+    at.button(key="fr_run").click().run()
+    assert not at.exception and not at.error
+    assert any(m.label == "fringe extrema crossed" for m in at.metric)

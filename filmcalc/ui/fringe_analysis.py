@@ -1,0 +1,212 @@
+"""Fringes page: a photo under monochromatic (or two-line) light becomes a thickness map or profile."""
+
+import json
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import plotly.graph_objects as go
+import streamlit as st
+
+from filmcalc import io as fio
+from filmcalc.charts import map_figure
+from filmcalc.errors import FilmcalcError
+from filmcalc.fringes import (FLAG_MEANINGS, FLAGS, fringe_images, fringe_map, fringe_spacing_nm,
+                              line_profile_thickness)
+from filmcalc.thickness import TRENDS
+from filmcalc.ui.common import (DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, pick_grid, picked_pixel,
+                                stack_picker)
+
+FRINGE_DIR = DEMO_DIR / "fringes"
+
+st.title("Fringes")
+st.write("Under one line of light (a sodium lamp, a laser, a band-pass filter) a film shows dark and bright bands, "
+         "one band per λ / (2 n cos θ) of thickness. Load such a photo, say the wavelength and one pixel of known "
+         "thickness, and get the thickness along a line or over the whole image; two lines at once (e.g. the red "
+         "and blue channels under two-line light) can fix the fringe order without a known pixel.")
+
+demos = {json.loads(p.read_text())["photo"]: json.loads(p.read_text()) for p in sorted(FRINGE_DIR.glob("*.json"))}
+source = st.radio("Photo", ["demo photo", "my photo"], horizontal=True, key="fr_source")
+if source == "demo photo":
+    name = st.selectbox("Demo photo", list(demos), key="fr_demo",
+                        help="Invented samples rendered by demo_data/make_demo_fringes.py.")
+    settings = demos[name]
+    data = (FRINGE_DIR / name).read_bytes()
+    choose_demo_stack(settings["stack"], f"fr::{name}")
+    st.caption(f"What the lab knows: {settings['note']}.")
+else:
+    upload = st.file_uploader("Photo (PNG, JPEG or TIFF)", type=["png", "jpg", "jpeg", "tif", "tiff"], key="fr_upload")
+    if upload is None:
+        st.info("Upload a photo, or pick a demo photo above.")
+        cautions_box()
+        st.stop()
+    data, name, settings = upload.getvalue(), upload.name, {}
+
+text, base_dir, origin = stack_picker()
+stack = load_or_stop(text, base_dir, origin)
+try:
+    photo = fio.load_photo(data, name=name)
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+H, W = photo.shape
+anchor_default = settings.get("anchor") or [W // 2, H // 2, 0.0]
+line_default = settings.get("line") or [0, H // 2, W - 1, H // 2]
+
+# Clicks on the photo fill the anchor or the line's ends (read before those inputs are drawn).
+pick_key = f"fr_pick::{name}"
+for i, v in enumerate(anchor_default):
+    st.session_state.setdefault(f"fr_anchor{i}::{name}", float(v))
+for i, v in enumerate(line_default):
+    st.session_state.setdefault(f"fr_line{i}::{name}", int(v))
+selection = (st.session_state.get(pick_key) or {}).get("selection")
+if selection and st.session_state.get(pick_key + "_seen") != repr(selection):
+    st.session_state[pick_key + "_seen"] = repr(selection)
+    clicked = picked_pixel(selection, W, H)
+    target = st.session_state.get(f"fr_click::{name}", "the known pixel")
+    if clicked:
+        if target == "the known pixel":
+            st.session_state[f"fr_anchor0::{name}"], st.session_state[f"fr_anchor1::{name}"] = map(float, clicked)
+        else:
+            first = 0 if target == "the line's start" else 2
+            st.session_state[f"fr_line{first}::{name}"], st.session_state[f"fr_line{first + 1}::{name}"] = clicked
+
+with st.sidebar:
+    st.header("Light")
+    wavelengths = settings.get("wavelengths_nm", [589.3])
+    two = st.checkbox("Two wavelengths", len(wavelengths) == 2, key=f"fr_two::{name}")
+    channels_default = settings.get("channels") or (["grey"] if photo.greyscale else ["red", "blue"])
+    chosen_wl, chosen_ch = [], []
+    for i in range(2 if two else 1):
+        c1, c2 = st.columns(2)
+        wl_default = wavelengths[i] if i < len(wavelengths) else 488.0
+        chosen_wl.append(c1.number_input(f"λ{i + 1} (nm)", 200.0, 2000.0, float(wl_default), 0.1,
+                                         key=f"fr_wl{i}::{name}"))
+        options = ["grey", "red", "green", "blue"]
+        ch = channels_default[i] if i < len(channels_default) else "blue"
+        chosen_ch.append(c2.selectbox(f"channel {i + 1}", options, options.index(ch), key=f"fr_ch{i}::{name}"))
+    st.header("What you know")
+    mode = st.radio("Result", ["map", "along a line"], horizontal=True, key=f"fr_mode::{name}")
+    c1, c2 = st.columns(2)
+    lo = c1.number_input("Thinnest (nm)", 0.0, 50000.0, float(settings.get("range", [0, 2000])[0]), 10.0,
+                         key=f"fr_lo::{name}")
+    hi = c2.number_input("Thickest (nm)", 1.0, 50000.0, float(settings.get("range", [0, 2000])[1]), 10.0,
+                         key=f"fr_hi::{name}")
+    use_anchor = st.checkbox("A pixel of known thickness", bool(settings.get("anchor")) or mode == "along a line",
+                             key=f"fr_use_anchor::{name}")
+    cols = st.columns(3)
+    anchor = [cols[i].number_input(lbl, key=f"fr_anchor{i}::{name}") for i, lbl in enumerate(("x", "y", "nm"))]
+    trend_options = ["not known"] + list(TRENDS)
+    trend = st.selectbox("Film gets thicker towards", trend_options,
+                         trend_options.index(settings.get("trend") or "not known"), key=f"fr_trend::{name}")
+    if mode == "along a line":
+        cols = st.columns(4)
+        line = [cols[i].number_input(lbl, 0, (W if i % 2 == 0 else H) - 1, key=f"fr_line{i}::{name}")
+                for i, lbl in enumerate(("x0", "y0", "x1", "y1"))]
+        direction = st.radio("Along the line the film gets", ["thicker", "thinner"], horizontal=True,
+                             key=f"fr_dir::{name}")
+        st.caption("The known thickness (nm above) is the thickness at the line's start.")
+    st.radio("A click on the photo sets", ["the known pixel", "the line's start", "the line's end"],
+             key=f"fr_click::{name}")
+
+try:
+    images = fringe_images(photo, chosen_wl, chosen_ch)
+    spacing = [fringe_spacing_nm(stack, wl) for wl in chosen_wl]
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+st.caption("One fringe (dark to dark) = " + ", ".join(f"{s:.1f} nm at {wl:g} nm" for s, wl in zip(spacing, chosen_wl))
+           + " of film thickness.")
+
+shown = max(1, int(np.ceil(max(H, W) / 1200)))
+fig = go.Figure([go.Image(z=np.rint(photo.rgb[::shown, ::shown] * 255).astype(np.uint8), dx=shown, dy=shown,
+                          hoverinfo="skip"), pick_grid(H, W, cells=200)])
+if use_anchor:
+    fig.add_trace(go.Scatter(x=[anchor[0]], y=[anchor[1]], mode="markers+text", text=[f"{anchor[2]:g} nm"],
+                             textposition="top center", marker={"symbol": "x", "size": 11, "color": "#ffbf00"},
+                             textfont={"color": "white", "shadow": "1px 1px 2px black"}, showlegend=False,
+                             hoverinfo="skip"))
+if mode == "along a line":
+    fig.add_trace(go.Scatter(x=[line[0], line[2]], y=[line[1], line[3]], mode="lines+markers",
+                             line={"color": "#00c8ff", "width": 2}, showlegend=False, hoverinfo="skip"))
+fig.update_layout(height=380, margin={"l": 0, "r": 0, "t": 10, "b": 0}, dragmode="zoom",
+                  xaxis={"range": [-0.5, W - 0.5], "showgrid": False},
+                  yaxis={"range": [H - 0.5, -0.5], "showgrid": False, "scaleanchor": "x"})
+st.plotly_chart(fig, width="stretch", on_select="rerun", selection_mode=("points",), key=pick_key)
+st.caption("Click the photo to set the pixel chosen in the sidebar (drag to zoom in, double-click to zoom out).")
+
+if not st.button("Compute the thickness", type="primary", key="fr_run"):
+    cautions_box()
+    st.stop()
+try:
+    if mode == "along a line":
+        profile = line_profile_thickness(images[0], tuple(int(v) for v in line), chosen_wl[0], stack, anchor[2],
+                                         direction, encoded=not photo.linear)
+    else:
+        bar = st.progress(0.0, "starting")
+        result = fringe_map(images, stack, chosen_wl, anchor=tuple(anchor) if use_anchor else None,
+                            trend=None if trend == "not known" else trend, range_nm=(lo, hi),
+                            encoded=not photo.linear, progress=lambda f, m: bar.progress(min(f, 1.0), m))
+        bar.empty()
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+
+if mode == "along a line":
+    for w in profile.warnings:
+        st.warning(w)
+    cols = st.columns(3)
+    cols[0].metric("thickness at the end", f"{profile.thickness_nm[-1]:.0f} nm")
+    cols[1].metric("fringe extrema crossed", f"{len(profile.extrema_px)}")
+    cols[2].metric("one fringe", f"{profile.period_nm:.1f} nm")
+    prof = go.Figure([
+        go.Scatter(x=profile.distance_px, y=profile.thickness_nm + profile.sigma_nm, line={"width": 0},
+                   showlegend=False, hoverinfo="skip"),
+        go.Scatter(x=profile.distance_px, y=profile.thickness_nm - profile.sigma_nm, fill="tonexty",
+                   line={"width": 0}, name="±1σ", hoverinfo="skip"),
+        go.Scatter(x=profile.distance_px, y=profile.thickness_nm, name="thickness", line={"color": "black"}),
+        go.Scatter(x=profile.extrema_px, y=profile.extrema_nm, mode="markers", name="bright / dark fringe",
+                   marker={"color": np.where(profile.extrema_kind == "max", "#f2c500", "#333")})])
+    prof.update_layout(height=360, xaxis_title="distance along the line (px)", yaxis_title="thickness (nm)",
+                       margin={"l": 10, "r": 10, "t": 20, "b": 10}, legend={"orientation": "h", "y": -0.25})
+    st.plotly_chart(prof, width="stretch")
+    table = "distance_px,thickness_nm,sigma_nm,intensity\n" + "\n".join(
+        f"{d:.2f},{t:.2f},{s:.2f},{i:.4f}" for d, t, s, i in zip(profile.distance_px, profile.thickness_nm,
+                                                                  profile.sigma_nm, profile.intensity))
+    st.download_button("Profile (CSV)", table, Path(name).stem + "-profile.csv", key="fr_dl_profile")
+else:
+    for w in result.warnings:
+        st.warning(w)
+    stats = result.statistics
+    cols = st.columns(3)
+    if "mean_nm" in stats:
+        cols[0].metric("mean thickness", f"{stats['mean_nm']:.1f} nm")
+        cols[1].metric("range", f"{stats['min_nm']:.0f}–{stats['max_nm']:.0f} nm")
+    flagged = float(np.mean(result.flags != 0))
+    cols[2].metric("flagged pixels", f"{100 * flagged:.1f} %")
+    tabs = st.tabs(["Thickness", "Uncertainty", "Flags", "Downloads"])
+    with tabs[0]:
+        st.plotly_chart(map_figure(result.thickness_nm, "thickness", "nm"), width="stretch")
+    with tabs[1]:
+        st.plotly_chart(map_figure(result.sigma_nm, "uncertainty (1σ)", "nm", "Viridis"), width="stretch")
+    with tabs[2]:
+        st.dataframe([{"flag": k, "pixels": int(np.count_nonzero(result.flags & v)), "meaning": FLAG_MEANINGS[k]}
+                      for k, v in FLAGS.items()], hide_index=True, width="stretch")
+        st.plotly_chart(map_figure(result.flags.astype(float), "flags (bit values)", "flags", "Greys"),
+                        width="stretch")
+    with tabs[3]:
+        with tempfile.TemporaryDirectory() as tmp:
+            stem = Path(name).stem + "-thickness"
+            files = {}
+            for ext, save in ((".tiff", lambda p: fio.save_map_tiff(p, result.thickness_nm, None)),
+                              (".npy", lambda p: fio.save_map_npy(p, result.thickness_nm)),
+                              (".csv", lambda p: fio.save_map_csv(p, result.thickness_nm, result.sigma_nm,
+                                                                  result.flags)),
+                              (".png", lambda p: fio.save_map_png(p, result.thickness_nm, name))):
+                path = Path(tmp) / (stem + ext)
+                save(path)
+                files[ext] = path.read_bytes()
+        cols = st.columns(4)
+        for col, (ext, blob) in zip(cols, files.items()):
+            col.download_button(ext[1:].upper(), blob, stem + ext, key=f"fr_dl{ext}")
+cautions_box()
