@@ -333,16 +333,28 @@ def fit_landscape_figure(fit, title=None):
     return fig
 
 
+def _contour_grid(x, y, t, size=120):
+    """Linear interpolation of scattered values on a regular grid, or None (too few or collinear points)."""
+    if x.size < 4 or np.ptp(x) == 0 or np.ptp(y) == 0:
+        return None
+    from scipy.interpolate import griddata
+    from scipy.spatial import QhullError
+
+    gx, gy = np.linspace(x.min(), x.max(), size), np.linspace(y.min(), y.max(), size)
+    try:
+        return gx, gy, griddata((x, y), t, (gx[None, :], gy[:, None]), method="linear")
+    except QhullError:  # all points on one line: a line scan, shown as points only
+        return None
+
+
 def spectrum_map_figure(result, unit="mm", title=None):
     """Thickness at each measured point over an interpolated contour map (plotly)."""
     fig = go.Figure()
     x, y, t = result.x, result.y, result.thickness_nm
-    if x.size >= 4:
-        from scipy.interpolate import griddata
-
-        gx = np.linspace(x.min(), x.max(), 120)
-        gy = np.linspace(y.min(), y.max(), 120)
-        grid = griddata((x, y), t, (gx[None, :], gy[:, None]), method="linear")
+    ok = np.isfinite(t)
+    grid = _contour_grid(x[ok], y[ok], t[ok])
+    if grid is not None:
+        gx, gy, grid = grid
         fig.add_trace(go.Contour(x=gx, y=gy, z=grid, colorscale="cividis", colorbar={"title": "nm"},
                                  contours={"showlabels": True}, hoverinfo="skip", opacity=0.85,
                                  zmin=np.nanmin(t), zmax=np.nanmax(t)))
@@ -370,11 +382,13 @@ def spectrum_map_figure_image(result, title, path, unit="mm"):
 
     fig, ax = plt.subplots(figsize=(6.4, 5.6), dpi=150)
     x, y, t = result.x, result.y, result.thickness_nm
-    if x.size >= 4:
-        filled = ax.tricontourf(x, y, t, levels=14, cmap="cividis")
-    else:
-        filled = None
-    points = ax.scatter(x, y, c=t, cmap="cividis", edgecolors="white", linewidths=0.6, s=28)
+    ok = np.isfinite(t)
+    grid = _contour_grid(x[ok], y[ok], t[ok])
+    filled = None
+    if grid is not None:
+        gx, gy, z = grid
+        filled = ax.contourf(gx, gy, z, levels=14, cmap="cividis")
+    points = ax.scatter(x[ok], y[ok], c=t[ok], cmap="cividis", edgecolors="white", linewidths=0.6, s=28)
     fig.colorbar(filled or points, ax=ax, label="thickness (nm)")
     ax.set_aspect("equal")
     ax.set_xlabel(f"x ({unit})")

@@ -149,11 +149,14 @@ def _as_fraction(reflectance, scale, name, notes):
     if scale not in ("auto", "percent", "fraction"):
         raise FilmcalcError(f"scale must be auto, percent or fraction (got {scale!r}).")
     top = float(np.max(reflectance))
-    if scale == "percent" or (scale == "auto" and top > 1.5):
+    # A reflectance cannot exceed 1 (beyond noise): larger values are percent.
+    if scale == "percent" or (scale == "auto" and top > 1.05):
         if scale == "auto":
             notes.append(f"values up to {top:g} read as percent (divided by 100); say scale=fraction if not")
         reflectance = reflectance / 100.0
-    if np.max(reflectance) > 1.5 or np.min(reflectance) < -0.1:
+    elif scale == "auto":
+        notes.append(f"values up to {top:g} read as fractions of 1; say scale=percent if they are percent")
+    if np.max(reflectance) > 1.05 or np.min(reflectance) < -0.1:
         raise FilmcalcError(f"{name}: reflectance runs from {np.min(reflectance):.3g} to {np.max(reflectance):.3g}; "
                             "expected 0–1 (or 0–100 %). Check the column and the scale.")
     return reflectance
@@ -221,18 +224,28 @@ def read_spectrum(source, name=None, scale="auto", reference_material="silicon")
     i_wl = 0 if i_wl is None else i_wl
     i_sample, i_ref, i_dark = _column(header, "sample"), _column(header, "ref"), _column(header, "dark")
     i_r = _column(header, "reflect", "refl", "r_", "r(")
-    counts = i_sample is not None and i_ref is not None
-    if header is None and data.shape[1] >= 3:
-        counts, i_sample, i_ref, i_dark = True, 1, 2, (3 if data.shape[1] >= 4 else None)
+    counts = i_sample is not None and i_ref is not None  # counts need a header that names them
     if data.shape[1] < 2:
         raise FilmcalcError(f"{name} needs at least two columns: wavelength (nm) and reflectance.")
     if counts:
         columns = [data[:, i_sample], data[:, i_ref]] + ([data[:, i_dark]] if i_dark is not None else [])
         wl, columns = _clean(data[:, i_wl], columns, name, notes)
+        dark = columns[2] if len(columns) > 2 else np.zeros_like(wl)
+        lit = columns[1] > dark
+        if not lit.all():
+            notes.append(f"{int((~lit).sum())} wavelengths where the reference is not above the dark level were "
+                         "left out")
+            wl, columns, dark = wl[lit], [c[lit] for c in columns], dark[lit]
+            if wl.size < MIN_POINTS:
+                raise FilmcalcError(f"{name}: the reference counts exceed the dark counts at only {wl.size} "
+                                    "wavelengths.")
         r_ref = bare_reflectance(reference_material, wl)
-        reflectance = reflectance_from_counts(columns[0], columns[1], columns[2] if len(columns) > 2 else None, r_ref)
+        reflectance = reflectance_from_counts(columns[0], columns[1], dark, r_ref)
         notes.append(f"counts turned into reflectance against bare {reference_material}")
+        reflectance = _as_fraction(reflectance, "fraction", name, notes)
     else:
+        if header is None and data.shape[1] > 2:
+            notes.append(f"columns 3–{data.shape[1]} ignored (name them sample, reference, dark for raw counts)")
         i_r = i_r if i_r is not None and i_r != i_wl else (1 if i_wl == 0 else 0)
         wl, (reflectance,) = _clean(data[:, i_wl], [data[:, i_r]], name, notes)
         reflectance = _as_fraction(reflectance, scale, name, notes)
@@ -277,7 +290,8 @@ def _ssr(table, y, baseline):
     # scale + offset: S = Syy − (Σ tc·yc)² / Σ tc²
     stt = np.maximum(np.sum(tc**2, 1), 1e-300)[:, None]
     cross = tc @ yc.T
-    return syy - cross**2 / stt
+    # A negative scale (the model upside down) is not a fit: such thicknesses explain nothing.
+    return syy - np.where(cross > 0, cross, 0.0) ** 2 / stt
 
 
 def _local_minima(s):
@@ -315,26 +329,33 @@ def _refine(stack, wl, y, d0, step, baseline, lo, hi):
         columns.append(np.ones_like(model))
     elif baseline == "scale+offset":
         (scale, offset), *_ = np.linalg.lstsq(np.column_stack([model, np.ones_like(model)]), y, rcond=None)
+        if scale <= 0:  # the model upside down is no fit: keep its shape, shift only
+            scale, offset = 1.0, float(np.mean(y - model))
         columns = [scale * dmodel, np.ones_like(model), model]
     return float(d), scale * model + offset, np.column_stack(columns), (float(offset), float(scale))
 
 
-def _group_index(stack, wl_nm):
-    """Group index n_g = n − λ dn/dλ of the film at ``wl_nm`` and cos θ_t."""
+def _fringe_factor(stack, wl_nm):
+    """d(optical phase)/dk per unit thickness over 4π: (n·n_g − β²)/√(n² − β²) of the film at ``wl_nm``.
+
+    n_g = n − λ dn/dλ is the group index and β = n₀ sin θ₀ the ambient's
+    tangential index; at normal incidence the factor is n_g.
+    """
     material = stack.film.material
     h = 1.0
     n0, n1, n2 = (material.index(np.array([wl_nm + dx]))[0].real for dx in (-h, 0.0, h))
     ng = n1 - wl_nm * (n2 - n0) / (2 * h)
     beta = stack.ambient.index(np.array([wl_nm]))[0].real * np.sin(np.deg2rad(stack.light.angle_deg))
-    cos_t = np.sqrt(max(1 - (beta / n1) ** 2, 0.0))
-    return float(ng), float(cos_t)
+    return float((n1 * ng - beta**2) / np.sqrt(max(n1**2 - beta**2, 1e-12)))
 
 
-def fringe_frequency_thickness(wavelength_nm, reflectance, group_index, cos_t=1.0):
-    """Thickness from the fringe frequency: FFT of R(k), k = 1/λ, peak at 2 n_g d cos θ_t.
+def fringe_frequency_thickness(wavelength_nm, reflectance, factor):
+    """Thickness from the fringe frequency: the FFT of R(k), k = 1/λ, peaks at 2 · factor · d.
 
-    Returns the thickness (nm) and the half-width of the FFT peak converted to
-    thickness (a resolution, nm), or (None, None) with too few fringes.
+    ``factor`` is the film's group index at normal incidence (see
+    :func:`_fringe_factor` for oblique light). Returns the thickness (nm) and
+    the FFT's resolution converted to thickness (nm; not an uncertainty), or
+    (None, None) with too few fringes.
     """
     k = 1.0 / np.asarray(wavelength_nm, float)[::-1]
     r = np.asarray(reflectance, float)[::-1]
@@ -356,8 +377,7 @@ def fringe_frequency_thickness(wavelength_nm, reflectance, group_index, cos_t=1.
     else:
         shift = 0.0
     f = freq[i] + shift * (freq[1] - freq[0])
-    resolution = 1.0 / span / (2 * group_index * cos_t)
-    return float(f / (2 * group_index * cos_t)), float(resolution)
+    return float(f / (2 * factor)), float(1.0 / span / (2 * factor))
 
 
 @dataclasses.dataclass
@@ -423,8 +443,14 @@ class SpectrumFit:
                 "seconds": round(self.seconds, 4)}
 
 
-def _window(spectrum, window_nm):
-    wl, y = spectrum.wavelength_nm, spectrum.reflectance
+def _window(spectrum, window_nm, warnings):
+    wl, y = np.asarray(spectrum.wavelength_nm, float), np.asarray(spectrum.reflectance, float)
+    finite = np.isfinite(wl) & np.isfinite(y)
+    if not finite.all():
+        warnings.append(f"{int((~finite).sum())} points with missing values (NaN) were left out")
+        wl, y = wl[finite], y[finite]
+    if wl.size and np.any(np.diff(wl) <= 0):
+        raise FilmcalcError("The spectrum's wavelengths must increase (read it with read_spectrum to sort them).")
     if window_nm is not None:
         a, b = float(window_nm[0]), float(window_nm[1])
         if not a < b:
@@ -443,6 +469,34 @@ def _grid_step(stack, wl, hi):
     half_fringe = wl[0] / (4 * n)
     width = wl[0] ** 2 / (2 * n * max(wl[-1] - wl[0], 1.0))
     return float(max(0.05, min(1.0, half_fringe / 40, width / 10)))
+
+
+MAX_TABLE = 30_000_000  # thickness grid × wavelengths held at once (240 MB of float64)
+
+
+def _thickness_grid(stack, wl, lo, hi):
+    """The even thickness grid of the global search (at least 3 points), refused if too large to hold."""
+    step = _grid_step(stack, wl, hi)
+    grid = np.arange(lo, hi + step / 2, step)
+    if grid.size < 3:
+        step = (hi - lo) / 2
+        grid = np.array([lo, lo + step, hi])
+    if grid.size * wl.size > MAX_TABLE:
+        raise FilmcalcError(f"A {lo:g}–{hi:g} nm range needs {grid.size} thicknesses × {wl.size} wavelengths: too "
+                            "many to hold at once. Narrow the thickness range or the wavelength window.")
+    return grid, step
+
+
+def _at_range_end(d, lo, hi, step):
+    """A warning when the best thickness sits at an end of the searched range."""
+    if (lo > 0 and d <= lo + step) or d >= hi - step:
+        return f"the best fit lies at the end of the searched range ({d:.1f} nm): widen the range"
+    return None
+
+
+def _ambiguous(delta_ssr, noise, reduced):
+    """Another minimum is about as good: its Δχ² (scaled by χ²_ν when that exceeds 1) is below 9 (3σ)."""
+    return delta_ssr / (noise**2 * np.maximum(reduced, 1.0)) < 9.0
 
 
 def _check_fit_inputs(stack, range_nm, baseline):
@@ -485,18 +539,19 @@ def fit_spectrum(spectrum, stack, range_nm=(0.0, 3000.0), fit="thickness", windo
     """
     t_start = time.perf_counter()
     lo, hi = _check_fit_inputs(stack, range_nm, baseline)
-    wl, y = _window(spectrum, window_nm)
+    warnings = []
+    wl, y = _window(spectrum, window_nm, warnings)
     extras = [p.strip() for p in fit.split(",") if p.strip() and p.strip() != "thickness"]
     for p in extras:
         if p != "cauchy" and not (p.startswith("layer:") and p[6:].isdigit()
                                   and 1 <= int(p[6:]) <= len(stack.layers)):
             raise FilmcalcError(f"Unknown fit parameter {p!r}: use thickness, cauchy or layer:K "
                                 f"(K = 1–{len(stack.layers)}).")
-    step = _grid_step(stack, wl, hi)
-    grid = np.arange(lo, hi + step / 2, step)
-    table, warnings = _model_table(stack, wl, grid)
+    grid, step = _thickness_grid(stack, wl, lo, hi)
+    table, model_warnings = _model_table(stack, wl, grid)
+    warnings += model_warnings
     s = _ssr(table, y, baseline)[:, 0]
-    noise = float(_noise(y))
+    del table
     p_base = {"none": 0, "offset": 1, "scale+offset": 2}[baseline]
     dof = max(wl.size - 1 - p_base, 1)
     minima = _local_minima(s)
@@ -528,6 +583,9 @@ def fit_spectrum(spectrum, stack, range_nm=(0.0, 3000.0), fit="thickness", windo
         ssr = float(np.sum((y - fitted) ** 2))
         dof = max(wl.size - J.shape[1], 1)
     s2 = ssr / dof
+    # The data's own noise, from second differences of what the model leaves (a smooth residual
+    # of a good fit adds nothing; the fringes themselves are taken out).
+    noise = float(_noise(y - fitted))
     try:
         cov = s2 * np.linalg.inv(J.T @ J)
         sigma = float(np.sqrt(max(cov[0, 0], 0.0)))
@@ -551,13 +609,17 @@ def fit_spectrum(spectrum, stack, range_nm=(0.0, 3000.0), fit="thickness", windo
     if reduced > 25:
         warnings.append(f"reduced χ² is {reduced:.0f}: the stack, the angle or the wavelength window does not "
                         "describe this spectrum well")
-    if alternatives and alternatives[0]["reduced_chi2"] < 2 * max(reduced, 1.0):
+    if alternatives and _ambiguous((alternatives[0]["reduced_chi2"] - reduced) * dof * noise**2, noise, reduced):
         warnings.append(f"another thickness ({alternatives[0]['thickness_nm']:.1f} nm) fits almost as well: "
                         "narrow the range or widen the wavelength window")
+    end = _at_range_end(d, lo, hi, step)
+    if end:
+        warnings.append(end)
     fft_d = fft_res = None
     if d > THICK_FILM_NM:
-        ng, cos_t = _group_index(fitted_stack, float(np.sqrt(wl[0] * wl[-1])))
-        fft_d, fft_res = fringe_frequency_thickness(wl, y, ng, cos_t)
+        # The window's centre in k = 1/λ: the harmonic mean of its ends.
+        factor = _fringe_factor(fitted_stack, 2.0 / (1.0 / wl[0] + 1.0 / wl[-1]))
+        fft_d, fft_res = fringe_frequency_thickness(wl, y, factor)
     return SpectrumFit(d, sigma, float(reduced), float(np.sqrt(ssr / wl.size)), noise, parameters, alternatives,
                        grid, s / dof / noise**2, wl, y, fitted, fft_d, fft_res,
                        {"offset": offset, "scale": scale}, warnings, time.perf_counter() - t_start)
@@ -772,7 +834,7 @@ def fit_map(spectrum_map, stack, range_nm=(0.0, 3000.0), window_nm=None, baselin
     block of spectra is one matrix product; each spectrum's best grid point is
     refined by a parabola and one Gauss–Newton step on the table's thickness
     derivative. A point is ``ambiguous`` when a minimum more than a third of a
-    fringe period away fits within 1.5× of the best residual.
+    fringe period away is within Δχ² = 9 of the best (as in :func:`fit_spectrum`).
 
     Returns
     -------
@@ -788,18 +850,42 @@ def fit_map(spectrum_map, stack, range_nm=(0.0, 3000.0), window_nm=None, baselin
             raise FilmcalcError(f"Only {int(keep.sum())} wavelengths lie in the window; a fit needs {MIN_POINTS}.")
         wl = wl[keep]
     Y = np.asarray(spectrum_map.reflectance, float)[:, keep]
-    step = _grid_step(stack, wl, hi)
-    grid = np.arange(lo, hi + step / 2, step)
+    if not np.all(np.isfinite(Y)):
+        bad = int(np.any(~np.isfinite(Y), axis=1).sum())
+        raise FilmcalcError(f"{bad} spectra of the map have missing values (NaN) in the window; remove them or "
+                            "narrow the window.")
+    grid, step = _thickness_grid(stack, wl, lo, hi)
     report(0.02, "computing the model over the thickness range")
     table, warnings = _model_table(stack, wl, grid)
-    deriv = np.gradient(table, step, axis=0)
+    deriv = np.gradient(table, grid, axis=0)
     n_film = float(np.max(stack.film.material.index(np.array([wl[0]])).real))
     exclude = max(1, int(wl[0] / (2 * n_film) / 3 / step))  # a third of the shortest fringe period
     M = Y.shape[0]
-    d_out, sig_out, chi_out, amb_out = (np.empty(M) for _ in range(4))
+    d_out, sig_out, chi_out = (np.empty(M) for _ in range(3))
     amb_out = np.zeros(M, dtype=bool)
     p_base = {"none": 0, "offset": 1, "scale+offset": 2}[baseline]
-    noise = _noise(Y)
+    dof = max(wl.size - 1 - p_base, 1)
+
+    def fitted_at(d, y):
+        """Model (baseline applied), thickness derivative (the baseline's directions taken out) at d."""
+        f = (d - grid[0]) / step
+        i0 = np.clip(np.floor(f).astype(int), 0, grid.size - 2)
+        w = np.clip(f - i0, 0, 1)[:, None]
+        model = (1 - w) * table[i0] + w * table[i0 + 1]
+        J = (1 - w) * deriv[i0] + w * deriv[i0 + 1]
+        if p_base == 0:
+            return model, J
+        mc, Jc = model - model.mean(1, keepdims=True), J - J.mean(1, keepdims=True)
+        yc = y - y.mean(1, keepdims=True)
+        if p_base == 1:
+            return mc + y.mean(1, keepdims=True), Jc
+        # Scale and offset: the best positive scale, and J made orthogonal to the scale's direction.
+        mm = np.maximum(np.sum(mc**2, 1), 1e-300)
+        scale = np.maximum(np.sum(mc * yc, 1) / mm, 1e-6)[:, None]
+        Jp = Jc - (np.sum(Jc * mc, 1) / mm)[:, None] * mc
+        return scale * mc + y.mean(1, keepdims=True), scale * Jp
+
+    ends = 0
     for a in range(0, M, chunk):
         report(0.05 + 0.9 * a / M, f"fitting spectra {a + 1}–{min(a + chunk, M)} of {M}")
         y = Y[a:a + chunk]
@@ -807,46 +893,37 @@ def fit_map(spectrum_map, stack, range_nm=(0.0, 3000.0), window_nm=None, baselin
         k = np.argmin(s, axis=0)
         m = np.arange(y.shape[0])
         best = s[k, m]
-        # Second-best minimum more than a third of a period away: is the fit ambiguous?
+        # The best minimum more than a third of a period away, for the ambiguity test below.
         masked = s.copy()
         rows = np.clip(k[None, :] + np.arange(-exclude, exclude + 1)[:, None], 0, grid.size - 1)
         masked[rows, m[None, :]] = np.inf
-        amb_out[a:a + chunk] = masked.min(axis=0) < 1.5 * best
+        second = masked.min(axis=0)
         del masked
-        # Parabola through the neighbours on the grid.
+        # Parabola through the neighbours on the grid, then one Gauss–Newton step.
         km, kp = np.clip(k - 1, 0, grid.size - 1), np.clip(k + 1, 0, grid.size - 1)
         sa, sb, sc = s[km, m], best, s[kp, m]
         den = sa - 2 * sb + sc
         shift = np.where((den > 0) & (km != k) & (kp != k), 0.5 * (sa - sc) / np.where(den > 0, den, 1), 0.0)
-        d = grid[k] + np.clip(shift, -1, 1) * step
-        # One Gauss–Newton step on the interpolated model.
-        f = (d - grid[0]) / step
-        i0 = np.clip(np.floor(f).astype(int), 0, grid.size - 2)
-        w = (f - i0)[:, None]
-        model = (1 - w) * table[i0] + w * table[i0 + 1]
-        J = (1 - w) * deriv[i0] + w * deriv[i0 + 1]
-        resid = y - model
-        if p_base:
-            resid = resid - resid.mean(1, keepdims=True)
-            J = J - J.mean(1, keepdims=True)
-        if p_base == 2:  # scale + offset: the scale absorbs part of the residual too
-            mc = model - model.mean(1, keepdims=True)
-            yc = y - y.mean(1, keepdims=True)
-            scale = np.sum(mc * yc, 1) / np.maximum(np.sum(mc**2, 1), 1e-300)
-            resid = yc - scale[:, None] * mc
-            J = scale[:, None] * J
+        d = np.clip(grid[k] + np.clip(shift, -1, 1) * step, lo, hi)
+        model, J = fitted_at(d, y)
         jj = np.maximum(np.sum(J**2, 1), 1e-300)
-        delta = np.sum(J * resid, 1) / jj
-        d = np.clip(d + np.clip(delta, -step, step), lo, hi)
-        ssr = np.sum(resid**2, 1) - np.sum(J * resid, 1) ** 2 / jj  # after the step (linearised)
-        dof = max(wl.size - 1 - p_base, 1)
-        s2 = np.maximum(ssr, 0) / dof
+        d = np.clip(d + np.clip(np.sum(J * (y - model), 1) / jj, -step, step), lo, hi)
+        # Residual, noise and σ at the final thickness.
+        model, J = fitted_at(d, y)
+        resid = y - model
+        s2 = np.sum(resid**2, 1) / dof
+        noise = _noise(resid)
+        reduced = s2 / noise**2
         d_out[a:a + chunk] = d
-        sig_out[a:a + chunk] = np.sqrt(s2 / jj)
-        chi_out[a:a + chunk] = s2 / noise[a:a + chunk] ** 2
+        sig_out[a:a + chunk] = np.sqrt(s2 / np.maximum(np.sum(J**2, 1), 1e-300))
+        chi_out[a:a + chunk] = reduced
+        amb_out[a:a + chunk] = _ambiguous(second - best, noise, reduced)
+        ends += int(np.sum(((lo > 0) & (d <= lo + step)) | (d >= hi - step)))
     stats = uniformity(d_out)
     if amb_out.any():
         warnings = warnings + [f"{int(amb_out.sum())} of {M} points have another thickness fitting almost as well"]
+    if ends:
+        warnings = warnings + [f"{ends} of {M} points fit best at an end of the searched range: widen the range"]
     report(1.0, "done")
     return MapFit(np.asarray(spectrum_map.x, float), np.asarray(spectrum_map.y, float), d_out, sig_out, chi_out,
                   amb_out, stats, warnings, time.perf_counter() - t_start)

@@ -91,3 +91,17 @@ def test_printable_thickness_angle_chart(grid, tmp_path):
     fig = thickness_angle_chart_image(grid, STACK, paper="A4")
     save_bench_chart(fig, tmp_path / "g.pdf")
     assert (tmp_path / "g.pdf").stat().st_size > 1000
+
+
+def test_map_of_spectra_figures_survive_line_scans_and_gaps(tmp_path):
+    # A line scan (collinear points) and a point with no thickness: no contour, no crash.
+    from filmcalc.charts import spectrum_map_figure, spectrum_map_figure_image
+    from filmcalc.spectra import MapFit, uniformity
+
+    t = np.array([100.0, 101.0, np.nan, 103.0, 104.0])
+    result = MapFit(np.arange(5.0), np.zeros(5), t, np.full(5, 0.1), np.ones(5), np.zeros(5, bool), uniformity(t), [],
+                    0.0)
+    fig = spectrum_map_figure(result)
+    assert [trace.type for trace in fig.data] == ["scatter"]
+    spectrum_map_figure_image(result, "line scan", tmp_path / "line.png")
+    assert (tmp_path / "line.png").stat().st_size > 1000

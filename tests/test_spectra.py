@@ -76,19 +76,29 @@ def test_thick_film_fringe_frequency_estimate():
     y = tmm_spectrum(OXIDE, 2750.0) + np.random.default_rng(2).normal(0, 0.002, WL.size)
     fit = fit_spectrum(Spectrum(WL, y), OXIDE, (0, 3000))
     assert fit.fft_thickness_nm is not None
-    # Independent of the fit: within its resolution (the FFT peak's width in thickness).
-    assert abs(fit.fft_thickness_nm - 2750.0) < max(fit.fft_resolution_nm, 20.0)
-    assert fringe_frequency_thickness(WL, y, 1.0)[0] > 2750.0  # group index 1 overestimates d
+    # Independent of the fit, and far finer than its nominal resolution thanks to the peak
+    # interpolation: within 15 nm. With the phase index n instead of the group index n_g the
+    # estimate would be ~50 nm off (fused silica's dispersion, Malitson 1965).
+    assert abs(fit.fft_thickness_nm - 2750.0) < 15.0
+    n = OXIDE.film.material.index(np.array([533.3]))[0].real
+    assert abs(fringe_frequency_thickness(WL, y, n)[0] - 2750.0) > 30.0
 
 
 def test_ambiguous_fits_list_their_alternatives():
     # A narrow window on a thin film: several thicknesses explain it, and the fit says so.
     wl = np.linspace(600, 620, 21)
-    y = tmm_spectrum(OXIDE, 800.0, wl) + np.random.default_rng(3).normal(0, 0.005, wl.size)
+    y = tmm_spectrum(OXIDE, 800.0, wl) + np.random.default_rng(3).normal(0, 0.01, wl.size)
     fit = fit_spectrum(Spectrum(wl, y), OXIDE, (0, 3000))
     assert fit.alternatives and fit.alternatives[0]["reduced_chi2"] < 3 * max(fit.reduced_chi2, 1)
     assert any("fits almost as well" in w for w in fit.warnings)
     assert fit.landscape_chi2.shape == fit.landscape_nm.shape
+    # The map applies the same test (Δχ² below 9) and flags the point.
+    mapped = fit_map(SpectrumMap(wl, y[None], np.zeros(1), np.zeros(1)), OXIDE, (0, 3000))
+    assert mapped.ambiguous[0]
+    # A full window leaves no doubt.
+    full = tmm_spectrum(OXIDE, 800.0) + np.random.default_rng(3).normal(0, 0.01, WL.size)
+    assert not fit_map(SpectrumMap(WL, full[None], np.zeros(1), np.zeros(1)), OXIDE, (0, 3000)).ambiguous[0]
+    assert not any("almost as well" in w for w in fit_spectrum(Spectrum(WL, full), OXIDE, (0, 3000)).warnings)
 
 
 def test_cauchy_coefficients_fitted_with_the_thickness():
@@ -114,6 +124,38 @@ def test_baseline_offset_handled_or_flagged():
     assert scaled.thickness_nm == pytest.approx(520.0, abs=0.5) and scaled.baseline["scale"] == pytest.approx(0.9, 0.02)
 
 
+def test_range_end_tiny_range_and_duplicates():
+    y = tmm_spectrum(OXIDE, 505.0) + np.random.default_rng(8).normal(0, 0.002, WL.size)
+    capped = fit_spectrum(Spectrum(WL, y), OXIDE, (0, 500))
+    assert any("end of the searched range" in w for w in capped.warnings) and capped.reduced_chi2 > 5
+    mapped = fit_map(SpectrumMap(WL, y[None], np.zeros(1), np.zeros(1)), OXIDE, (0, 500))
+    assert any("end of the searched range" in w for w in mapped.warnings) and mapped.reduced_chi2[0] > 5
+    tiny = fit_map(SpectrumMap(WL, y[None], np.zeros(1), np.zeros(1)), OXIDE, (504.8, 505.3))
+    assert abs(tiny.thickness_nm[0] - 505.0) < 0.3
+    rows = [(w, r) for w, r in zip(WL, y)] + [(WL[3], y[3] + 0.01)]
+    doubled = read_spectrum(_csv(rows))
+    assert doubled.wavelength_nm.size == WL.size and any("repeated" in n for n in doubled.notes)
+    assert doubled.reflectance[3] == pytest.approx(y[3] + 0.005)
+
+
+def test_map_baselines_and_their_sigma():
+    # Spectra scaled by 0.9 and shifted by 0.02 (a reference error): the scale+offset fit recovers the
+    # thickness, and its reported 1σ matches the scatter over noisy copies (as fit_spectrum's does).
+    clean = tmm_spectrum(OXIDE, 150.0)
+    rng = np.random.default_rng(9)
+    spectra = 0.9 * clean + 0.02 + rng.normal(0, 0.003, (80, WL.size))
+    result = fit_map(SpectrumMap(WL, spectra, np.arange(80.0), np.zeros(80)), OXIDE, (0, 1000),
+                     baseline="scale+offset")
+    errors = result.thickness_nm - 150.0
+    assert abs(np.mean(errors)) < 3 * errors.std() / np.sqrt(80)
+    assert 0.7 < errors.std() / np.mean(result.sigma_nm) < 1.4
+    single = fit_spectrum(Spectrum(WL, spectra[0]), OXIDE, (0, 1000), baseline="scale+offset")
+    assert single.sigma_nm == pytest.approx(result.sigma_nm[0], rel=0.25)
+    offset = fit_map(SpectrumMap(WL, clean[None] + 0.05, np.zeros(1), np.zeros(1)), OXIDE, (0, 1000),
+                     baseline="offset")
+    assert abs(offset.thickness_nm[0] - 150.0) < 0.5
+
+
 def _csv(rows, header="wavelength_nm,reflectance"):
     return (header + "\n" + "\n".join(",".join(str(v) for v in r) for r in rows)).encode()
 
@@ -136,6 +178,13 @@ def test_reading_percent_nan_unsorted_and_counts():
     assert np.allclose(counts.reflectance, r, atol=1e-9)
     tsv = read_spectrum("\n".join(f"{a}\t{b}" for a, b in zip(WL, r)).encode())
     assert np.allclose(tsv.reflectance, r)
+    # A dim film in percent (all values below 1.05 %) needs saying so: auto reads fractions, and says so.
+    dim = read_spectrum(_csv(zip(WL, np.full(WL.size, 0.9))))
+    assert any("fractions" in n for n in dim.notes)
+    assert np.allclose(read_spectrum(_csv(zip(WL, np.full(WL.size, 0.9))), scale="percent").reflectance, 0.009)
+    # Three unnamed columns are wavelength, reflectance and something else (not counts).
+    third = read_spectrum("\n".join(f"{a},{b},0.01" for a, b in zip(WL, r)).encode())
+    assert np.allclose(third.reflectance, r) and any("ignored" in n for n in third.notes)
 
 
 @pytest.mark.parametrize("content, message", [

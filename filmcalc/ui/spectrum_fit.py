@@ -75,8 +75,8 @@ cols[3].metric("rms residual", f"{100 * fit.rms_residual:.2f} %")
 for w in fit.warnings:
     st.warning(w)
 if fit.fft_thickness_nm is not None:
-    st.info(f"Independent estimate from the fringe frequency: {fit.fft_thickness_nm:.0f} ± "
-            f"{fit.fft_resolution_nm:.0f} nm (FFT of R against 1/λ, group index of the film).")
+    st.info(f"Independent estimate from the fringe frequency: {fit.fft_thickness_nm:.0f} nm (FFT of R against "
+            f"1/λ with the film's group index; the FFT's resolution is {fit.fft_resolution_nm:.0f} nm).")
 st.plotly_chart(spectrum_fit_figure(fit), width="stretch")
 left, right = st.columns([3, 2])
 left.plotly_chart(fit_landscape_figure(fit), width="stretch")

@@ -56,7 +56,7 @@ for w in result.warnings:
 s = result.statistics
 cols = st.columns(4)
 cols[0].metric("mean", f"{s['mean_nm']:.2f} nm", help=f"over {s['points']} points")
-cols[1].metric("σ", f"{s['std_nm']:.2f} nm")
+cols[1].metric("std over points", f"{s['std_nm']:.2f} nm")
 cols[2].metric("range", f"{s['range_nm']:.2f} nm", help=f"{s['min_nm']:.2f} to {s['max_nm']:.2f} nm")
 cols[3].metric("non-uniformity", f"{s['nonuniformity_pct']:.2f} %", help="(max − min) / (2 · mean)")
 st.plotly_chart(spectrum_map_figure(result, unit=unit), width="stretch")
