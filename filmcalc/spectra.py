@@ -321,8 +321,10 @@ def _refine(stack, wl, y, d0, step, baseline, lo, hi):
             d = grid[k] + 0.5 * (grid[k + 1] - grid[k]) * (a - c) / den
     # Model and its thickness derivative at d, interpolated on the fine grid (0.05 nm or finer).
     dtable = np.gradient(table, grid, axis=0) if grid.size > 1 else np.zeros_like(table)
-    model = np.array([np.interp(d, grid, col) for col in table.T])
-    dmodel = np.array([np.interp(d, grid, col) for col in dtable.T])
+    j = int(np.clip(np.searchsorted(grid, d) - 1, 0, grid.size - 2)) if grid.size > 1 else 0
+    w = float(np.clip((d - grid[j]) / (grid[j + 1] - grid[j]), 0, 1)) if grid.size > 1 else 0.0
+    model = (1 - w) * table[j] + w * table[min(j + 1, grid.size - 1)]
+    dmodel = (1 - w) * dtable[j] + w * dtable[min(j + 1, grid.size - 1)]
     offset, scale, columns = 0.0, 1.0, [dmodel]
     if baseline == "offset":
         offset = float(np.mean(y - model))
