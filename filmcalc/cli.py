@@ -25,7 +25,8 @@ map PHOTO STACK.toml --out FILE(.npy|.tiff|.csv|.png) [--range MIN:MAX] [--ancho
     provenance record FILE.json is written beside the map.
 
 fit SPECTRUM.csv STACK.toml [--range MIN:MAX] [--fit thickness|thickness,cauchy|thickness,layer:K]
-    [--window A:B] [--baseline none|offset|scale+offset] [--scale auto|percent|fraction] [--json]
+    [--window A:B] [--baseline none|offset|scale+offset] [--scale auto|percent|fraction]
+    [--reference MATERIAL] [--json]
     Thickness of the unknown film from a reflectance spectrum (CSV/TSV of
     wavelength and reflectance, or sample/reference/dark counts).
 
@@ -300,7 +301,7 @@ def _fit(args):
     from .spectra import fit_spectrum, read_spectrum
 
     stack = _film_stack(args.stack)
-    spectrum = read_spectrum(args.spectrum, scale=args.scale)
+    spectrum = read_spectrum(args.spectrum, scale=args.scale, reference_material=args.reference)
     window = parse_range(args.window, "--window", 2) if args.window else None
     result = fit_spectrum(spectrum, stack, parse_range(args.range, "--range", 2), fit=args.fit, window_nm=window,
                           baseline=args.baseline)
@@ -525,6 +526,8 @@ def build_parser():
     fp.add_argument("--range", default="0:3000", help="MIN:MAX thickness searched, nm (default 0:3000)")
     fp.add_argument("--fit", default="thickness", help="thickness, thickness,cauchy or thickness,layer:K")
     fp.add_argument("--window", help="A:B wavelengths used, nm (default: all)")
+    fp.add_argument("--reference", default="silicon",
+                    help="built-in material the raw counts' reference is made of (default silicon)")
     _add_spectrum_options(fp)
     fp.add_argument("--json", action="store_true", help="print JSON")
     fp.set_defaults(run=_fit)

@@ -53,7 +53,7 @@ from .errors import FilmcalcError
 from .materials import CauchyIndex, built_in_material
 from .optics import reflectance_sweep, stack_indices, stack_reflectance, thickness_sweep
 
-__all__ = ["Spectrum", "read_spectrum", "reflectance_from_counts", "fit_spectrum", "SpectrumFit", "SpectrumMap",
+__all__ = ["Spectrum", "read_spectrum", "reflectance_from_counts", "bare_reflectance", "fit_spectrum", "SpectrumFit", "SpectrumMap",
            "read_spectrum_map", "fit_map", "uniformity"]
 
 MIN_POINTS = 10
