@@ -81,6 +81,20 @@ class Spectrum:
     notes: list = dataclasses.field(default_factory=list)
 
 
+def _text(source, name, what):
+    """A text table's contents and a name for messages, from a path or bytes (binary data refused)."""
+    if isinstance(source, (bytes, bytearray)):
+        text, name = bytes(source).decode("utf-8", errors="replace"), name or what
+    else:
+        path = Path(source)
+        if not path.is_file():
+            raise FilmcalcError(f"{what.capitalize()} file {path} does not exist.")
+        text, name = path.read_text(encoding="utf-8", errors="replace"), name or path.name
+    if "\x00" in text:
+        raise FilmcalcError(f"{name} is not a text table (it holds binary data).")
+    return text, name
+
+
 def _rows(text, name):
     """Numeric rows and the header (or None) of a CSV/TSV/whitespace table."""
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
@@ -209,15 +223,7 @@ def read_spectrum(source, name=None, scale="auto", reference_material="silicon")
     -------
     Spectrum
     """
-    if isinstance(source, (bytes, bytearray)):
-        text, name = bytes(source).decode("utf-8", errors="replace"), name or "spectrum"
-    else:
-        path = Path(source)
-        if not path.is_file():
-            raise FilmcalcError(f"Spectrum file {path} does not exist.")
-        text, name = path.read_text(encoding="utf-8", errors="replace"), name or path.name
-    if "\x00" in text:
-        raise FilmcalcError(f"{name} is not a text table (it holds binary data).")
+    text, name = _text(source, name, "spectrum")
     data, header = _rows(text, name)
     notes = []
     i_wl = _column(header, "wave", "lambda", "nm")
@@ -757,13 +763,7 @@ def read_spectrum_map(source, positions=None, scale="auto", name=None):
                 notes.append(f"{s.name} interpolated onto the first spectrum's wavelengths")
             refl.append(np.interp(wl, s.wavelength_nm, s.reflectance))
         return SpectrumMap(wl, np.array(refl), np.array(xs), np.array(ys), name or folder.name, notes)
-    if isinstance(source, (bytes, bytearray)):
-        text, name = bytes(source).decode("utf-8", errors="replace"), name or "map"
-    else:
-        path = Path(source)
-        if not path.is_file():
-            raise FilmcalcError(f"Map file {path} does not exist.")
-        text, name = path.read_text(encoding="utf-8", errors="replace"), name or path.name
+    text, name = _text(source, name, "map")
     data, header = _rows(text, name)
     cols = [_column(header, "x"), _column(header, "y"), _column(header, "wave", "lambda", "nm"),
             _column(header, "refl", "r_", "r(")]
