@@ -15,7 +15,8 @@ from filmcalc.stack import load_stack, loads_stack
 DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
 
 MEASUREMENT_CAUTION = (
-    "Thickness read from colour is an estimate. Its uncertainty is shown where filmcalc can compute it; "
+    "Thickness read from colour, fringes or a spectrum is an estimate. Its uncertainty is shown where filmcalc "
+    "can compute it; "
     "confirm any value that matters with an independent measurement (spectroscopic reflectometry or "
     "ellipsometry, a stylus profiler)."
 )
