@@ -95,7 +95,9 @@ Theory, Algorithms, and Software, ch. 4 (quality-guided path following).
 
 from __future__ import annotations
 
+import bisect
 import dataclasses
+import heapq
 import itertools
 import time
 
@@ -106,7 +108,7 @@ from .appearance import fringe_order
 from .colour import srgb_decode
 from .errors import FilmcalcError
 from .optics import reflectance_sweep
-from .thickness import TRENDS, _Candidates, _candidates, _resolve, _statistics
+from .thickness import TRENDS, _blur_normalised, _Candidates, _candidates, _repick, _statistics
 
 __all__ = ["DIRECTIONS", "FLAGS", "FLAG_MEANINGS", "FringeMap", "FringeProfile", "fringe_map", "fringe_spacing_nm",
            "line_profile_thickness", "synthetic_wavelength", "unambiguous_span_nm"]
@@ -150,6 +152,23 @@ ENVELOPE_SHARE = 0.75
 ENVELOPE_OVERSHOOT = 2.2
 # Growth grid: at most this many cells a side (the growth is pure Python; our choice).
 COARSE_MAX_CELLS = 192
+# The growth predicts each step from a plane fitted to the cells already assigned within this many
+# cells (a 7 × 7 window; our choice) ...
+PLANE_CELLS = 3
+# ... each weighted by 1 / (1 + (w / (PLANE_WIDTH · spacing))²), w the width of the stretch of
+# thickness its intensity allows: cells the intensity places count fully, cells within a bright or
+# dark fringe, placed by continuity, hardly (our choice) ...
+PLANE_WIDTH = 1 / 32
+# ... and its slope drawn towards the one the cell was predicted with by this much (in weighted
+# cells²): a slope the window cannot see (cells on one line only, or none the intensity places)
+# is carried on (our choice).
+PLANE_RIDGE = 0.5
+# A step that changes the thickness against the plane's slope costs this many times the change
+# (our choice).
+AGAINST_SLOPE = 2.0
+# Thicknesses whose normalised intensities differ by less than this many times their noise are
+# told apart by continuity, not by intensity (common practice, no source).
+FLAT_SIGMAS = 3.0
 # Noise floor: the quantisation noise of 8-bit data, one step / √12.
 QUANTISATION_NOISE = 1.0 / 255 / np.sqrt(12)
 
@@ -484,17 +503,291 @@ def _match(values, model, max_candidates):
     return _Candidates(t, d, i, table[code])
 
 
-class _SmoothFilm:
-    """Stands in for the photo's colours in :func:`filmcalc.thickness._resolve`.
+def _grow(cand_t, cand_d, cand_lo, cand_hi, fringe, flat_nm, seeds, period_nm, valid, trend=None):
+    """Quality-guided growth over the coarse grid: each cell's thickness (NaN where unreached).
 
-    The growth there crosses "edges" (steps in the film) on colour evidence.
-    A normalised intensity cannot tell a step from a fringe, so the film is
-    taken as continuous: no edges anywhere.
+    Each candidate stands for the stretch of thickness whose intensity the
+    noise cannot tell from its own (see :func:`_stretch_table`): a point where
+    the intensity changes fast with thickness, a range at a bright or dark
+    fringe, where it is flat. Each step predicts a neighbour's thickness from
+    a plane fitted to the cells of its region already assigned within
+    ``PLANE_CELLS`` (weighted least squares: cells the intensity placed count
+    fully, cells placed by continuity within a fringe hardly, see
+    ``PLANE_WIDTH``; the slope drawn towards the one the current cell was
+    predicted with, by ``PLANE_RIDGE``), and takes the point of the
+    candidates' stretches nearest the prediction, a change against the
+    plane's slope costing ``AGAINST_SLOPE`` times its size.
+
+    Bright and dark fringes need more. The normalised intensity is symmetric
+    about each extremum of R(d), so past one a neighbour has two candidates
+    equally far either side of it: the film may continue through the fringe,
+    or fold back at it, and where the film changes slowly the noise hides
+    which. A continuous film does not fold exactly at a fringe (its
+    thickness would have a crease there), so it continues: the cells whose
+    stretches hold a flat point of the model (``cand_flat``: an extremum
+    with one wavelength) are the fringes, the other cells split into
+    patches between them, and the first cell of a patch reached across a
+    fringe takes a candidate on the other side of the fringe's thickness
+    from the patch the growth came from. Within a patch, and back into one
+    already reached, continuity alone decides.
+
+    A neighbour more than a third of a fringe spacing from every stretch is
+    left for another path. Cells no seed reaches start regions of their own,
+    where the intensity places the film best (the largest gap between the
+    best and second-best match, times the best one's weight). A trend (the
+    direction of thicker film) costs a candidate that thins against it a
+    fringe spacing.
+
+    Parameters
+    ----------
+    cand_t, cand_d : numpy.ndarray, shape (h, w, C)
+        Candidate thicknesses (nm, +inf where none), best match first, and
+        their distances in normalised intensity.
+    cand_lo, cand_hi : numpy.ndarray, shape (h, w, C)
+        The ends of each candidate's stretch, nm.
+    cand_flat : numpy.ndarray, shape (h, w, C)
+        The flat point within each stretch, nm (NaN where none).
+    seeds : list of (row, column, thickness_nm)
+    period_nm : float
+        The shortest fringe spacing.
+    valid : numpy.ndarray of bool, shape (h, w)
+    trend : {"right", "left", "down", "up"}, optional
+
+    Returns
+    -------
+    numpy.ndarray, shape (h, w)
     """
+    H, W, _ = cand_t.shape
+    ty, tx = TRENDS[trend] if trend else (0, 0)
+    break_nm = period_nm / 3
+    width_nm = PLANE_WIDTH * period_nm
+    usable = valid & np.isfinite(cand_t[..., 0])
+    fringe = usable & fringe
+    flat_nm = flat_nm.tolist()
+    patch = ndimage.label(usable & ~fringe)[0].tolist()
+    cells = [[[] for _ in range(W)] for _ in range(H)]
+    ys, xs, cs = np.nonzero(usable[..., None] & np.isfinite(cand_t))
+    rows = np.stack([cand_lo[ys, xs, cs], cand_hi[ys, xs, cs]], axis=1).tolist()
+    for y, x, row in zip(ys.tolist(), xs.tolist(), rows):
+        cells[y][x].append(row)
+    ok = usable.tolist()
+    chosen = [[None] * W for _ in range(H)]
+    region = [[-1] * W for _ in range(H)]
+    weight = [[0.0] * W for _ in range(H)]            # the cell's weight in the planes
+    prior = [[(0.0, 0.0)] * W for _ in range(H)]      # the slope it was predicted with
+    crossing = [[None] * W for _ in range(H)]         # in a fringe: (its thickness, side, patch) came from
 
-    @staticmethod
-    def block_mean_lab(step, shape):
-        return np.zeros(tuple(shape) + (1,))
+    def place(y, x, t, rid, w, came_from):
+        chosen[y][x], region[y][x], weight[y][x] = t, rid, w
+        if patch[y][x]:
+            return
+        k = bisect.bisect(flat_nm, t)  # the fringe's thickness: the flat point nearest the cell's
+        flat = min(flat_nm[max(k - 1, 0):k + 1], key=lambda f: abs(f - t), default=t)
+        if came_from is None:  # a seed in a fringe: which side it continues to is unknown
+            crossing[y][x] = (flat, 0.0, 0)
+        elif patch[came_from[0]][came_from[1]]:
+            t0 = chosen[came_from[0]][came_from[1]]
+            crossing[y][x] = (flat, 1.0 if t0 > flat else -1.0, patch[came_from[0]][came_from[1]])
+        else:
+            crossing[y][x] = crossing[came_from[0]][came_from[1]]
+
+    heap = []
+    for rid, (y, x, t) in enumerate(seeds):
+        if ok[y][x] and chosen[y][x] is None:
+            place(y, x, t, rid, 1.0, None)
+            heap.append((0.0, y, x))
+    heapq.heapify(heap)
+    next_region = len(seeds)
+    with np.errstate(invalid="ignore"):
+        margin = np.where(np.isfinite(cand_d[..., 1]), cand_d[..., 1] - cand_d[..., 0], 1e6) - 1e-3 * cand_d[..., 0]
+        first_weight = 1.0 / (1.0 + ((cand_hi[..., 0] - cand_lo[..., 0]) / width_nm) ** 2)
+    order = np.argsort(np.where(usable, -margin * first_weight, np.inf), axis=None)[:int(usable.sum())].tolist()
+    pos = 0
+    while True:
+        while heap:
+            _, y, x = heapq.heappop(heap)
+            rid = region[y][x]
+            # The local plane: weighted sums over the window (the cell itself with a token weight, so
+            # that where nothing around counts the plane keeps its value).
+            py, px = prior[y][x]
+            s0, st = 1e-6, 1e-6 * chosen[y][x]
+            sy = sx = syy = sxx = sxy = sty = stx = 0.0
+            for j in range(max(0, y - PLANE_CELLS), min(H, y + PLANE_CELLS + 1)):
+                row_t, row_r, row_w, dy = chosen[j], region[j], weight[j], j - y
+                for i in range(max(0, x - PLANE_CELLS), min(W, x + PLANE_CELLS + 1)):
+                    t = row_t[i]
+                    if t is not None and row_r[i] == rid:
+                        w, dx = row_w[i], i - x
+                        s0 += w
+                        sy += w * dy
+                        sx += w * dx
+                        syy += w * dy * dy
+                        sxx += w * dx * dx
+                        sxy += w * dy * dx
+                        st += w * t
+                        sty += w * t * dy
+                        stx += w * t * dx
+            # Eliminate the plane's value here (t0), then solve for its slope (nm per cell).
+            a11, a12, a22 = syy - sy * sy / s0 + PLANE_RIDGE, sxy - sy * sx / s0, sxx - sx * sx / s0 + PLANE_RIDGE
+            b1, b2 = sty - sy * st / s0 + PLANE_RIDGE * py, stx - sx * st / s0 + PLANE_RIDGE * px
+            det = a11 * a22 - a12 * a12
+            gy, gx = (a22 * b1 - a12 * b2) / det, (a11 * b2 - a12 * b1) / det
+            t0 = (st - sy * gy - sx * gx) / s0
+            across = crossing[y][x]
+            for dy, dx in ((1, 0), (-1, 0), (0, 1), (0, -1)):
+                yy, xx = y + dy, x + dx
+                if not (0 <= yy < H and 0 <= xx < W and ok[yy][xx] and chosen[yy][xx] is None):
+                    continue
+                change = gy * dy + gx * dx
+                predicted = t0 + change
+                sense = AGAINST_SLOPE if change > 0 else -AGAINST_SLOPE if change < 0 else 0.0
+                along = dy * ty + dx * tx
+                # Out of a fringe into another patch: the film continues through the fringe.
+                flat, side = across[:2] if across and patch[yy][xx] not in (0, across[2]) else (0.0, 0.0)
+                best, best_cost, best_jump, best_width = None, np.inf, 0.0, 0.0
+                for lo, hi in cells[yy][xx]:
+                    t = lo if predicted < lo else hi if predicted > hi else predicted
+                    jump = abs(t - predicted)
+                    cost = jump + max(0.0, (t0 - t) * sense)
+                    if (t - flat) * side > 0:
+                        cost += period_nm  # back to the side of the fringe the growth came from
+                    if along and (t - t0) * along < -0.05 * period_nm:
+                        cost += period_nm  # against the trend
+                    if cost < best_cost:
+                        best, best_cost, best_jump, best_width = t, cost, jump, hi - lo
+                if best_jump > break_nm:
+                    continue  # no candidate continues the film here: left for another path or region
+                place(yy, xx, best, rid, 1.0 / (1.0 + (best_width / width_nm) ** 2), (y, x))
+                prior[yy][xx] = (gy, gx)
+                heapq.heappush(heap, ((best_jump + best_width) / period_nm, yy, xx))
+        # Start a new region from the most uniquely matched unreached cell.
+        while pos < len(order):
+            y, x = divmod(order[pos], W)
+            pos += 1
+            if chosen[y][x] is None:
+                place(y, x, float(cand_t[y, x, 0]), next_region, float(first_weight[y, x]), None)
+                next_region += 1
+                heap.append((0.0, y, x))
+                break
+        else:
+            break
+    return np.array([[np.nan if v is None else v for v in row] for row in chosen], dtype=float)
+
+
+def _upsample(coarse, step, offset, shape):
+    """Bilinear interpolation to ``shape`` of a grid whose node (i, j) is pixel (offset[0] + i·step,
+    offset[1] + j·step); constant beyond the outer nodes."""
+    h, w = coarse.shape
+    ys = np.clip((np.arange(shape[0]) - offset[0]) / step, 0, h - 1)
+    xs = (np.arange(shape[1]) - offset[1]) / step
+    rows = np.stack([np.interp(xs, np.arange(w), coarse[r]) for r in range(h)]).astype(np.float32)
+    y0 = np.floor(ys).astype(int)
+    y1 = np.minimum(y0 + 1, h - 1)
+    fy = (ys - y0)[:, None].astype(np.float32)
+    out = rows[y0]
+    out *= 1 - fy
+    out += fy * rows[y1]
+    return out
+
+
+def _stretch_table(model, tolerance):
+    """The stretch of thickness around each of the model's thicknesses whose normalised intensities
+    stay within ``tolerance`` of its own (distance over the wavelengths), contiguous and at most a
+    quarter of the shortest fringe spacing either way.
+
+    Returns
+    -------
+    low, high : numpy.ndarray
+        Its ends, nm.
+    holds : numpy.ndarray of bool
+        Whether it holds a flat point of the model.
+    flat_nm : numpy.ndarray
+        The flat points, nm: where the intensities change slowest with thickness (the extrema of
+        R(d), with one wavelength).
+    """
+    t, u = model.thickness_nm, model.normalised
+    L = t.size
+    reach = max(1, int(float(model.period_nm.min()) / 4 / (t[1] - t[0])))
+    index = np.arange(L)
+    ends = []
+    for sign in (-1, 1):
+        end, open_ = index.copy(), np.ones(L, dtype=bool)
+        for s in range(1, reach + 1):
+            j = np.clip(index + sign * s, 0, L - 1)
+            open_ &= (index + sign * s >= 0) & (index + sign * s < L)
+            open_ &= np.sqrt(np.sum((u[j] - u) ** 2, axis=1)) <= tolerance
+            if not open_.any():
+                break
+            end[open_] = j[open_]
+        ends.append(t[end])
+    speed = np.sqrt(np.sum(model.slope**2, axis=1))
+    flat_nm = t[np.flatnonzero((speed[1:-1] <= speed[:-2]) & (speed[1:-1] < speed[2:])) + 1]
+    holds = np.searchsorted(flat_nm, ends[1], side="right") > np.searchsorted(flat_nm, ends[0], side="left")
+    return ends[0], ends[1], holds, flat_nm
+
+
+def _resolve(cands, usable, model, tolerance, anchor, trend, coarse_max):
+    """Fringe orders, coarse to fine.
+
+    The growth of :func:`_grow` runs on a grid of at most ``coarse_max``
+    cells a side laid through the anchor pixel (x, y, thickness_nm), if
+    there is one, and seeded there: at the anchor's thickness if the
+    intensity allows it (it lies within a candidate's stretch), else at the
+    nearest end of the nearest stretch. Each pixel then takes the candidate
+    nearest the upsampled growth, and again the one nearest a local mean of
+    those (σ = 3 px).
+
+    Parameters
+    ----------
+    cands : filmcalc.thickness._Candidates
+    usable : numpy.ndarray of bool, shape (H, W)
+    stretch : (numpy.ndarray, numpy.ndarray)
+        :func:`_stretch_table` of the model the candidates index.
+    anchor : (int, int, float) or None
+    period_nm : float
+        The shortest fringe spacing.
+    trend : str or None
+    coarse_max : int
+
+    Returns
+    -------
+    chosen, local : numpy.ndarray, shape (H, W)
+        The thickness per pixel and the local surface it was picked against, nm.
+    seeded : bool
+        Whether the anchor could seed the growth (False without one).
+    """
+    H, W = cands.key.shape
+    period_nm = float(model.period_nm.min())
+    stretch = _stretch_table(model, tolerance)
+    step = max(1, int(np.ceil(max(H, W) / coarse_max)))
+    offset = (anchor[1] % step, anchor[0] % step) if anchor else (0, 0)
+    rows, cols = slice(offset[0], None, step), slice(offset[1], None, step)
+    ct, cd = cands.at(rows, cols)
+    index = cands.i[cands.key[rows, cols]]
+    lo = np.where(np.isfinite(ct), stretch[0][index], np.inf)
+    hi = np.where(np.isfinite(ct), stretch[1][index], np.inf)
+    valid = usable[rows, cols]
+    seeds = []
+    if anchor:
+        x, y, t = anchor
+        yy, xx = y // step, x // step  # the anchor pixel itself
+        if valid[yy, xx]:
+            nearest = np.clip(t, lo[yy, xx], hi[yy, xx])
+            seeds.append((yy, xx, float(nearest[np.argmin(np.abs(nearest - t))])))
+    # Fringes: cells where most of the candidates matching about as well as the best hold a flat point.
+    good = np.isfinite(ct) & (cd <= cd[..., :1] + tolerance)
+    fringe = 2 * np.sum(good & stretch[2][index], axis=-1) > np.sum(good, axis=-1)
+    coarse = _grow(ct, cd, lo, hi, fringe, stretch[3], seeds, period_nm, valid, trend)
+    # Unreached cells take a local mean of the reached ones, so the reference is defined everywhere.
+    filled = np.where(np.isnan(coarse), _blur_normalised(coarse, np.ones_like(coarse), 2.0), coarse)
+    filled = np.where(np.isnan(filled), np.nanmean(coarse) if np.isfinite(coarse).any() else 0.0, filled)
+    reference = _upsample(filled, step, offset, (H, W))
+    pick = _repick(cands, reference, np.zeros((H, W), dtype=np.int8))
+    local = _blur_normalised(cands.take(pick), np.ones((H, W), np.float32), 3.0)
+    local = np.where(np.isfinite(local), local, reference).astype(np.float32)
+    del reference
+    pick = _repick(cands, local, pick)
+    return cands.take(pick), local, bool(seeds)
 
 
 @dataclasses.dataclass
@@ -660,9 +953,11 @@ def fringe_map(intensity, stack, wavelengths_nm, anchor=None, trend=None, range_
     # The growth grid must follow the fringes: three cells per half fringe where they are densest.
     densest = min(float(np.percentile(n.half_fringe_px[usable], 10)) for n in normalised)
     coarse_max = int(np.clip(np.ceil(max(H, W) / max(1, int(densest // 3))), 96, COARSE_MAX_CELLS))
-    chosen, _, local, region, n_seeds = _resolve(cands, usable, anchors, p_min, _SmoothFilm(), trend,
-                                                 coarse_max=coarse_max)
-    if anchors and not (n_seeds == 1 and region[anchors[0][1], anchors[0][0]] == 0):
+    # Thicknesses whose intensities differ by under three times the noise cannot be told apart.
+    sigma_u = max(float(_smoothing_gain(smooth_px, 2) * n.noise / np.median(n.contrast[usable])) for n in normalised)
+    chosen, local, seeded = _resolve(cands, usable, model, FLAT_SIGMAS * sigma_u, anchors[0] if anchors else None,
+                                     trend, coarse_max)
+    if anchors and not seeded:
         raise FilmcalcError(_ANCHOR_UNREADABLE.format(*anchors[0][:2]))
     report(0.85, "uncertainty and flags")
     thickness = np.where(np.isfinite(chosen), chosen, np.nan).astype(np.float32)

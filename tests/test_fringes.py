@@ -325,3 +325,23 @@ NO_FILM = loads_stack('[ambient]\nmaterial = "air"\n[[layers]]\nmaterial = "wate
 def test_bad_input_is_explained(call, message):
     with pytest.raises(FilmcalcError, match=message):
         call()
+
+
+def test_dome_under_one_line_from_a_corner_anchor():
+    # Regression: closed ring fringes of a dome under one wavelength, anchored at a corner, once
+    # came out a whole fringe order off everywhere, unflagged. The anchor must hold and the rest follow.
+    from filmcalc.stack import load_stack
+    from filmcalc.synthetic import dome
+
+    from pathlib import Path
+
+    oil = load_stack(Path(__file__).resolve().parent.parent / "demo_data" / "oil-on-water.toml")
+    truth = dome((160, 320), 60, 650)
+    grid = np.arange(0.0, 700.0, 0.25)
+    r = reflectance_sweep(oil, [632.8], grid).R[0, :, 0]
+    image = np.interp(truth, grid, r) / r.max() * 0.9 + np.random.default_rng(0).normal(0, 0.01, truth.shape)
+    result = fringe_map([image], oil, [632.8], anchor=(0, 0, float(truth[0, 0])), range_nm=(0, 1000))
+    good = result.flags == 0
+    err = np.abs(result.thickness_nm - truth)
+    assert good.mean() > 0.9
+    assert np.median(err[good]) < 5 and np.mean(err[good] > fringe_spacing_nm(oil, 632.8) / 4) < 0.02
