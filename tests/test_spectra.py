@@ -270,3 +270,17 @@ def test_map_files_long_and_folder(tmp_path):
         read_spectrum_map(folder)
     with pytest.raises(FilmcalcError, match="header"):
         read_spectrum_map(b"1,2,400,0.1\n1,2,410,0.1\n")
+
+
+def test_a_second_layer_fitted_with_the_film():
+    # Resist (unknown) on an oxide whose thickness is also free: both come back from a tmm spectrum.
+    stack = loads_stack('[ambient]\nmaterial = "air"\n[[layers]]\nmaterial = "pmma"\nthickness_nm = 1\nunknown = true\n'
+                        '[[layers]]\nmaterial = "fused-silica"\nthickness_nm = 90\n[substrate]\nmaterial = "silicon"\n')
+    n, _ = stack_indices(stack, WL)
+    y = np.array([tmm.coh_tmm("s", [n[0][i], n[1][i], n[2][i], n[3][i]], [np.inf, 410.0, 105.0, np.inf], 0,
+                              WL[i])["R"] for i in range(WL.size)])
+    y = y + np.random.default_rng(10).normal(0, 0.001, WL.size)
+    fit = fit_spectrum(Spectrum(WL, y), stack, (300, 500), fit="thickness,layer:2")
+    assert fit.thickness_nm == pytest.approx(410.0, abs=3.0)
+    assert fit.parameters["layer2_nm"][0] == pytest.approx(105.0, abs=3.0)
+    assert 0.5 < fit.reduced_chi2 < 2.0
