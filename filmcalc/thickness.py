@@ -206,7 +206,7 @@ def _candidates(lab_obs, lab_lut, tolerance, max_candidates):
     dist = np.full((U, max_candidates), np.inf)
     lut = lab_lut.astype(np.float32)
     lut2 = np.sum(lut**2, axis=1)
-    chunk = max(1, (4 << 20) // L)
+    chunk = max(1, (1 << 16) // L)
     for a in range(0, U, chunk):
         obs = lab_obs[a:a + chunk].astype(np.float32)
         d2 = np.sum(obs**2, axis=1)[:, None] + lut2[None, :] - 2 * obs @ lut.T
@@ -275,11 +275,20 @@ def _refined_candidates(lab_obs, lab_lut, tolerance, max_candidates, coarse=4):
     L = lab_lut.shape[0]
     idx, dist = _candidates(lab_obs, lab_lut[::coarse], tolerance + 2.0, max_candidates)
     offsets = np.arange(-coarse, coarse + 1)
-    fine = np.clip(idx[..., None] * coarse + offsets, 0, L - 1)  # (U, C, 2·coarse+1)
-    d = np.linalg.norm(lab_lut[fine] - lab_obs[:, None, None, :], axis=-1)
-    best = np.argmin(d, axis=-1)
-    idx_f = np.take_along_axis(fine, best[..., None], axis=-1)[..., 0]
-    dist_f = np.take_along_axis(d, best[..., None], axis=-1)[..., 0]
+    # Only the (colour, candidate) pairs found are refined, in single precision.
+    found = np.flatnonzero(idx.ravel() >= 0)
+    row = found // idx.shape[1]
+    fine = np.clip(idx.ravel()[found, None] * coarse + offsets, 0, L - 1)  # (P, 2·coarse+1)
+    diff = lab_lut.astype(np.float32)[fine]
+    diff -= lab_obs.astype(np.float32)[row, None, :]
+    d2 = np.einsum("pkc,pkc->pk", diff, diff)
+    del diff
+    best = np.argmin(d2, axis=-1)[:, None]
+    idx_f = np.full(idx.size, -1, dtype=np.int64)
+    dist_f = np.full(idx.size, np.inf)
+    idx_f[found] = np.take_along_axis(fine, best, axis=-1)[:, 0]
+    dist_f[found] = np.sqrt(np.take_along_axis(d2, best, axis=-1)[:, 0])
+    idx_f, dist_f = idx_f.reshape(idx.shape), dist_f.reshape(idx.shape)
     keep = (idx >= 0) & (dist_f <= tolerance)
     idx_f, dist_f = np.where(keep, idx_f, -1), np.where(keep, dist_f, np.inf)
     order = np.argsort(dist_f, axis=1)
@@ -381,7 +390,8 @@ def _stretch(lab_obs, index, distance, lab_lut, lookup, margin):
     found to 2 nm. Returns its ends (low, high) in nm, shaped like ``index``."""
     shape = np.shape(index)
     index, distance = np.ravel(index), np.ravel(distance)
-    lab_obs = np.reshape(lab_obs, (-1, 3))
+    lab_obs = np.reshape(lab_obs, (-1, 3)).astype(np.float32)
+    lab_lut = lab_lut.astype(np.float32)
     step = float(lookup.thickness_nm[1] - lookup.thickness_nm[0])
     stride = max(1, int(round(2.0 / step)))
     reach = max(1, int(lookup.period_nm / 4 / step / stride))
@@ -392,8 +402,8 @@ def _stretch(lab_obs, index, distance, lab_lut, lookup, margin):
     for a in range(0, index.size, 4096):
         i = index[a:a + 4096]
         j = i[:, None] + offsets
-        inside = np.linalg.norm(lab_lut[np.clip(j, 0, L - 1)] - lab_obs[a:a + 4096, None, :], axis=-1) \
-            <= distance[a:a + 4096, None] + margin
+        diff = lab_lut[np.clip(j, 0, L - 1)] - lab_obs[a:a + 4096, None, :]
+        inside = np.einsum("ukc,ukc->uk", diff, diff) <= ((distance[a:a + 4096] + margin) ** 2)[:, None]
         inside &= (j >= 0) & (j < L)
         # Contiguous from the entry outwards on each side.
         right = np.maximum(np.cumprod(inside[:, reach:], axis=1).sum(axis=1) - 1, 0)
@@ -403,15 +413,14 @@ def _stretch(lab_obs, index, distance, lab_lut, lookup, margin):
     return low.reshape(shape), high.reshape(shape)
 
 
-def _colour_stretch(cands, flat, ok, lab_obs, lab_lut, lookup, margin):
-    """:func:`_stretch` for every (colour, candidate) pair some pixel uses.
+def _colour_stretch(cands, used, lab_obs, lab_lut, lookup, margin):
+    """:func:`_stretch` for every (colour, candidate) pair some pixel uses (flat indices ``used``).
 
     Returns two flat tables, (U + 1) · C long, of the stretch's ends in nm (the candidate's own
     thickness, or NaN where it is missing, for the pairs not computed).
     """
     low = np.where(np.isfinite(cands.t), cands.t, np.nan).astype(np.float32).ravel()
     high = low.copy()
-    used = np.flatnonzero(np.bincount(flat[ok], minlength=cands.t.size))
     C = cands.t.shape[1]
     low[used], high[used] = _stretch(lab_obs[used // C], cands.i.ravel()[used], cands.d.ravel()[used], lab_lut,
                                      lookup, margin)
@@ -601,11 +610,15 @@ def _blur_normalised(values, weights, sigma):
     return np.divide(num, den, out=np.full(values.shape, np.nan, dtype), where=den > 1e-6)
 
 
-def _resolve(cands, valid, anchors, period_nm, colours, trend=None, coarse_max=96, lab_lut=None, lookup=None):
+def _resolve(cands, valid, anchors, period_nm, colours, trend=None, coarse_max=96, lab_lut=None, lookup=None,
+             prior=None):
     """Order resolution, coarse to fine (see the module docstring).
 
     With ``lab_lut`` (the predicted colours) and ``lookup``, candidates on the coarse grid stand
-    for the stretches of thickness whose colour fits as well (see :func:`_stretch`).
+    for the stretches of thickness whose colour fits as well (see :func:`_stretch`). With a
+    ``prior`` (a thickness map of the same film moments earlier, NaN where unknown), every coarse
+    cell whose prior is continued by a candidate (within a third of a period) seeds the growth,
+    and the prior itself is the full-resolution reference wherever it is known.
     """
     H, W = cands.key.shape
     step = max(1, int(np.ceil(max(H, W) / coarse_max)))
@@ -617,30 +630,49 @@ def _resolve(cands, valid, anchors, period_nm, colours, trend=None, coarse_max=9
         if np.any(np.isfinite(ct[yy, xx])):
             j = int(np.argmin(np.abs(ct[yy, xx] - t)))
             seeds.append((yy, xx, float(ct[yy, xx, j])))
-    # Edges are judged on block means (noise averages out), candidates on the sampled pixels.
-    lab_blocks = colours.block_mean_lab(step, ct.shape[:2])
-    lo = hi = None
-    if lab_lut is not None:
-        # Stretches for each distinct colour on the grid, for the candidates that fit about as
-        # well as its best (the others seldom win and stay points).
-        rows, inverse = np.unique(cands.key[::step, ::step], return_inverse=True)
-        rows = rows[rows < colours.lab.shape[0]]  # not the row of unusable pixels
-        d = cands.d[rows]
-        best = d[:, 0][np.isfinite(d[:, 0])]
-        margin = max(1.0, 1.4826 * float(np.median(best))) if best.size else 1.0
-        fits = np.isfinite(d) & (d <= d[:, :1] + 4 * margin)
-        lo_rows, hi_rows = cands.t[rows].copy(), cands.t[rows].copy()
-        r, c = np.nonzero(fits)
-        lo_rows[r, c], hi_rows[r, c] = _stretch(colours.lab[rows[r]], cands.i[rows[r], c], d[r, c], lab_lut, lookup,
-                                                margin)
-        pad = np.full((1, lo_rows.shape[1]), np.inf, np.float32)  # for the unusable row, if present
-        inverse = inverse.reshape(ct.shape[:2])
-        lo, hi = np.vstack([lo_rows, pad])[inverse], np.vstack([hi_rows, pad])[inverse]
-    coarse, region = _grow(ct, cd, seeds, period_nm, cv, lab_blocks, trend, lo, hi)
+    if prior is not None:
+        with np.errstate(invalid="ignore"):
+            gap = np.abs(ct - prior[::step, ::step, None])
+            nearest = np.argmin(np.where(np.isfinite(gap), gap, np.inf), axis=-1)
+            near_t = np.take_along_axis(ct, nearest[..., None], -1)[..., 0]
+            continued = cv & (np.take_along_axis(gap, nearest[..., None], -1)[..., 0] < BREAK_FRACTION * period_nm)
+        ys, xs = np.nonzero(continued)
+        seeds += list(zip(ys.tolist(), xs.tolist(), near_t[ys, xs].tolist()))
+    if prior is not None and seeds and len(seeds) >= 0.5 * np.count_nonzero(cv & np.isfinite(ct[..., 0])):
+        # The prior continues over most of the film: its seeds are the coarse map (no growth needed),
+        # one region tied to the prior; cells it does not reach get their reference from around them.
+        coarse = np.full(ct.shape[:2], np.nan)
+        region = np.full(ct.shape[:2], -1, dtype=np.int64)
+        ys, xs, ts = (np.array(v) for v in zip(*seeds))
+        coarse[ys, xs], region[ys, xs] = ts, 0
+        seeds = seeds[:1]
+    else:
+        # Edges are judged on block means (noise averages out), candidates on the sampled pixels.
+        lab_blocks = colours.block_mean_lab(step, ct.shape[:2])
+        lo = hi = None
+        if lab_lut is not None:
+            # Stretches for each distinct colour on the grid, for the candidates that fit about as
+            # well as its best (the others seldom win and stay points).
+            rows, inverse = np.unique(cands.key[::step, ::step], return_inverse=True)
+            rows = rows[rows < colours.lab.shape[0]]  # not the row of unusable pixels
+            d = cands.d[rows]
+            best = d[:, 0][np.isfinite(d[:, 0])]
+            margin = max(1.0, 1.4826 * float(np.median(best))) if best.size else 1.0
+            fits = np.isfinite(d) & (d <= d[:, :1] + 4 * margin)
+            lo_rows, hi_rows = cands.t[rows].copy(), cands.t[rows].copy()
+            r, c = np.nonzero(fits)
+            lo_rows[r, c], hi_rows[r, c] = _stretch(colours.lab[rows[r]], cands.i[rows[r], c], d[r, c], lab_lut, lookup,
+                                                    margin)
+            pad = np.full((1, lo_rows.shape[1]), np.inf, np.float32)  # for the unusable row, if present
+            inverse = inverse.reshape(ct.shape[:2])
+            lo, hi = np.vstack([lo_rows, pad])[inverse], np.vstack([hi_rows, pad])[inverse]
+        coarse, region = _grow(ct, cd, seeds, period_nm, cv, lab_blocks, trend, lo, hi)
     # Fill unreached coarse cells so the upsampled reference is defined everywhere.
     filled = np.where(np.isnan(coarse), _blur_normalised(coarse, np.ones_like(coarse), 2.0), coarse)
     filled = np.where(np.isnan(filled), np.nanmean(coarse) if np.any(np.isfinite(coarse)) else 0.0, filled)
     reference = _upsample(filled.astype(np.float32), step, (H, W))
+    if prior is not None:
+        reference = np.where(np.isfinite(prior), prior, reference).astype(np.float32)
     pick = _repick(cands, reference, np.zeros((H, W), dtype=np.int8))
     chosen = cands.take(pick)
     # Second pass against a locally smoothed reference (weights favour good colour matches).
@@ -660,7 +692,7 @@ def _fit_gains(pred_linear, obs_linear):
 
 def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), reference=None, trend=None,
                   self_calibrate=True, full_matrix=None, tolerance=12.0, max_candidates=12, step_nm=0.5,
-                  pixel_size_um=None, angle_deg=None, progress=None, lookup=None):
+                  pixel_size_um=None, angle_deg=None, progress=None, lookup=None, camera=None, prior=None):
     """Turn a photo of interference colours into a thickness map.
 
     Parameters
@@ -685,6 +717,14 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     pixel_size_um : float, optional
         For areas in the statistics.
     progress : callable(fraction, message), optional
+    lookup : ColourLookup, optional
+        The film's predicted colours over ``range_nm`` (built when not given).
+    camera : CameraModel, optional
+        A camera correction fitted before (e.g. on the first frame of a sequence): used as it
+        is, with no calibration.
+    prior : numpy.ndarray, shape (H, W), optional
+        The film's thickness (nm) moments earlier, NaN where unknown: the order resolution
+        continues it (see :func:`_resolve`), and the regions it reaches count as anchored.
 
     Returns
     -------
@@ -727,9 +767,14 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     valid = ~(saturated | dark)
     if not valid.any():
         raise FilmcalcError("Every pixel is saturated or nearly black: check the exposure of the photo.")
-    camera, calibration = _initial_camera(rgb, valid, lookup, reference, self_calibrate, anchors)
+    if prior is not None and np.shape(prior) != (H, W):
+        raise FilmcalcError(f"The prior thickness map is {np.shape(prior)}, the photo {H} × {W}: they must match.")
+    if camera is None:
+        camera, calibration = _initial_camera(rgb, valid, lookup, reference, self_calibrate, anchors)
+    else:
+        calibration = {"method": "given"}
     shift_dE = 0.0
-    if self_calibrate and reference is None:
+    if self_calibrate and reference is None and calibration["method"] != "given":
         # Fit the camera on a subsample (≤ 60 000 pixels), alternating with the map.
         stride = max(1, int(np.ceil(np.sqrt(H * W / 60_000))))
         small = np.ascontiguousarray(rgb[::stride, ::stride])
@@ -760,7 +805,8 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
                             f"{range_nm[1]:g} nm: check the stack, the light, the exposure and the range.")
     report(0.8, "resolving fringe orders")
     chosen, pick, local, region, n_seeds = _resolve(cands, has, anchors, period, colours, trend,
-                                                    lab_lut=lookup.lab(camera), lookup=lookup)
+                                                    lab_lut=lookup.lab(camera), lookup=lookup,
+                                                    prior=None if prior is None else np.asarray(prior, np.float32))
     report(0.9, "uncertainty and flags")
     # Everything but the agreement with the neighbours depends on the pixel's colour and picked
     # candidate only: computed once per (colour, candidate) in tables, then looked up per pixel.
@@ -780,9 +826,10 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     lab_lut = lookup.lab(camera)
     slope = np.linalg.norm(np.gradient(lab_lut, lookup.thickness_nm, axis=0), axis=1)  # ΔE per nm
     sigma_table = np.minimum(np.maximum(noise, d_table) / np.maximum(slope[cands.i], 1e-3), period / 2)
-    # Colour residual ΔE00.
-    lab_u = np.vstack([colours.lab, np.zeros((1, 3))])
-    residual_table = delta_E_2000(lab_u[:, None, :], lab_lut[cands.i]).astype(np.float32)
+    # Colour residual ΔE00, for the (colour, candidate) pairs some pixel uses (NaN for the others).
+    used = np.flatnonzero(np.bincount(flat[ok], minlength=cands.t.size))
+    residual_table = np.full(cands.t.shape, np.nan, np.float32)
+    residual_table.ravel()[used] = delta_E_2000(colours.lab[used // C], lab_lut[cands.i.ravel()[used]])
     typical_residual = float(np.median(residual_table.ravel()[sample])) if sample.size else 0.0
     colour_flags = np.zeros(cands.t.shape, dtype=np.uint8)
     # Continuity chose a candidate that another fringe order clearly out-fits: the colours there
@@ -811,12 +858,13 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     flags |= (valid & ~has).view(np.uint8) * np.uint8(FLAGS["no_match"])
     # Regions the growth could not join (separate patches of film, or colours that do not continue
     # the film) have fringe orders of their own: flagged unless an anchor ties them; without
-    # anchors the largest region is the reference.
+    # anchors (or a prior) the largest region is the reference. Regions grown from a seed (an
+    # anchor or a cell continuing the prior) are tied.
     counts = np.bincount(region[::4, ::4][ok[::4, ::4] & (region[::4, ::4] >= 0)].ravel())
     if counts.size:
         tied = np.zeros(max(counts.size, int(region.max()) + 1) + 1, dtype=bool)
-        if anchors:
-            tied[[int(region[y, x]) for x, y, _ in anchors]] = True
+        if n_seeds:
+            tied[:n_seeds] = True
         else:
             tied[int(np.argmax(counts))] = True
         flags |= (ok & ~tied[region]).view(np.uint8) * np.uint8(FLAGS["unanchored"])
@@ -825,7 +873,7 @@ def thickness_map(encoded_rgb, stack, range_nm=(0.0, 1500.0), *, anchors=(), ref
     # (the thickness nearest the local reference within that stretch), and σ covers the stretch.
     # Only on flat stretches (over an eighth of a period) and away from colour edges, so steps
     # stay sharp.
-    low, high = _colour_stretch(cands, flat, ok, colours.lab, lab_lut, lookup, max(1.0, noise))
+    low, high = _colour_stretch(cands, used, colours.lab, lab_lut, lookup, max(1.0, noise))
     span = np.nan_to_num(high - low)
     sigma_table = np.maximum(sigma_table.astype(np.float32).ravel(), span / np.sqrt(12))
     sigma = np.where(ok, sigma_table[flat], np.nan)
