@@ -27,7 +27,7 @@ import numpy as np
 from .errors import FilmcalcError
 
 __all__ = ["Photo", "load_photo", "MAX_PIXELS", "save_map_npy", "save_map_tiff", "save_map_csv", "save_map_png",
-           "save_provenance", "file_sha256"]
+           "save_provenance", "file_sha256", "rgb_of_samples"]
 
 MAX_PIXELS = 60_000_000  # a 24-megapixel camera with room to spare; larger images are refused
 
@@ -155,6 +155,13 @@ def _load_tiff(data, name, linear, max_pixels, digest):
         raise
     except Exception as exc:  # tifffile raises many types for damaged files
         raise FilmcalcError(f"{name!r} is not a readable TIFF ({exc}).") from None
+    scaled, depth, grey = rgb_of_samples(arr, name)
+    return Photo(scaled, depth, linear, grey, name, digest)
+
+
+def rgb_of_samples(arr, name):
+    """Image samples as stored (uint8, uint16 or float; 1, 3 or 4 channels) → (RGB float32 0–1 (H, W, 3),
+    bit depth, whether the image was greyscale)."""
     if arr.dtype == np.uint16:
         scaled, depth = arr.astype(np.float32) / 65535.0, 16
     elif arr.dtype == np.uint8:
@@ -172,7 +179,7 @@ def _load_tiff(data, name, linear, max_pixels, digest):
         scaled = scaled[..., :3]
     else:
         raise FilmcalcError(f"{name!r}: expected 1, 3 or 4 channels, found {scaled.shape[2]}.")
-    return Photo(np.ascontiguousarray(scaled), depth, linear, grey, name, digest)
+    return np.ascontiguousarray(scaled), depth, grey
 
 
 def _out_path(path, suffixes):

@@ -29,7 +29,7 @@ from .colour import srgb_encode
 from .thickness import build_lookup
 
 __all__ = ["wedge", "dome", "steps", "draining_soap_film", "edge_bead", "oil_lens", "CameraSettings",
-           "render_photo", "measured_camera_lookup"]
+           "render_photo", "measured_camera_lookup", "thinning_film", "render_sequence"]
 
 
 def _grid(shape):
@@ -67,6 +67,43 @@ def draining_soap_film(shape, black_nm=30.0, bottom_nm=1200.0, black_fraction=0.
     s = np.clip((y - black_fraction) / (1 - black_fraction) + swirl, 0, 1)
     thickness = black_nm + (bottom_nm - black_nm) * s**1.6
     return np.where(y < black_fraction + swirl * 0.5, black_nm, thickness)
+
+
+def thinning_film(shape, t_s, amplitude_nm=500.0, t0_s=-0.5, alpha=0.5, seed=0):
+    """A vertical film thinning by a power law: mean thickness A·(t − t₀)^−α (nm, t in s).
+
+    The film is thinner at the top and thicker at the bottom, with gentle swirls: the field is
+    a fixed profile (mean 1) times the law, so its mean follows the law exactly.
+    """
+    x, y = _grid(shape)
+    rng = np.random.default_rng(seed)
+    phase = rng.uniform(0, 2 * np.pi, 2)
+    profile = 0.7 + 0.6 * y + 0.05 * np.sin(5 * x + phase[0]) * np.sin(3 * y + phase[1])
+    profile /= profile.mean()
+    return profile * amplitude_nm * (float(t_s) - t0_s) ** -alpha
+
+
+def render_sequence(stack, shape, times_s, rupture_s=None, camera=None, background=0.02, lookup=None, **law):
+    """Frames (encoded sRGB, 0–1) of a :func:`thinning_film` that ruptures at ``rupture_s``.
+
+    At the first frame at or after ``rupture_s`` a hole covering most of the film has opened
+    (it shows the dark background); every later frame is background only. Yields
+    ``(time_s, frame, thickness_nm)`` with NaN thickness where there is no film.
+    """
+    camera = camera or CameraSettings()
+    x, y = _grid(shape)
+    hole = (x - 0.3) ** 2 + (y - 0.4) ** 2 < 0.45**2
+    ruptured_at = None
+    for i, t in enumerate(times_s):
+        field = thinning_film(shape, t, **law)
+        cam = dataclasses.replace(camera, seed=camera.seed + i)
+        frame = render_photo(stack, field, cam, lookup)
+        if rupture_s is not None and t >= rupture_s:
+            ruptured_at = t if ruptured_at is None else ruptured_at
+            gone = hole if t == ruptured_at else np.ones(shape, bool)
+            frame[gone] = background
+            field = np.where(gone, np.nan, field)
+        yield t, frame, field
 
 
 def edge_bead(shape, flat_nm=900.0, bead_nm=1400.0, width=0.08):

@@ -4,3 +4,13 @@ from hypothesis import settings
 
 settings.register_profile("filmcalc", derandomize=True, deadline=None, print_blob=True)
 settings.load_profile("filmcalc")
+
+from pathlib import Path  # noqa: E402
+
+import pytest  # noqa: E402
+
+
+@pytest.fixture(scope="session")
+def demo_dir():
+    """The repository's demo_data folder (invented scenarios)."""
+    return Path(__file__).resolve().parent.parent / "demo_data"
