@@ -44,6 +44,16 @@ fringes PHOTO STACK.toml --wavelength NM [--wavelength NM] [--channel red|green|
     the line's start (--out .csv or .json); otherwise a map (--out .npy, .tiff,
     .csv or .png, with a .json record beside it).
 
+sequence INPUT STACK.toml --out FOLDER [--frames A:B:STEP] [--fps N] [--anchor X,Y,NM]...
+         [--range MIN:MAX] [--point X,Y]... [--region X0,Y0,X1,Y1]... [--line X0,Y0,X1,Y1]
+         [--pixel-size UM] [--chunk K] [--scheduler serial|local|tcp://HOST:PORT] [--workers N]
+         [--export tiff|mp4|gif]... [--json]
+    A recording (folder of frames, multi-page TIFF or video) → a thickness cube
+    (FOLDER/cube.zarr), the series over time (FOLDER/series.csv), the thinning
+    law and the rupture; --json prints the summary, with the frames skipped and
+    why. Anchors are pixels of the first frame mapped. The default scheduler is
+    a Dask cluster of local worker processes; tcp://HOST:PORT uses a running one.
+
 Errors a user can cause print one line to stderr and exit with status 2;
 material warnings go to stderr and do not change the output.
 """
@@ -53,6 +63,7 @@ from __future__ import annotations
 import argparse
 import csv
 import json
+import os
 import sys
 
 import numpy as np
@@ -560,7 +571,89 @@ def build_parser():
     fr.add_argument("--out", required=True, help="map: .npy/.tiff/.csv/.png; line: .csv or .json")
     fr.add_argument("--json", action="store_true", help="print the summary record as JSON")
     fr.set_defaults(run=_fringes)
+
+    sq = sub.add_parser("sequence", help="a recording over time → thickness cube, series, thinning law, rupture")
+    sq.add_argument("input", help="folder of PNG/TIFF/JPEG frames, multi-page TIFF, or video (MP4, AVI, MOV, MKV)")
+    sq.add_argument("stack", help="stack file (TOML)")
+    sq.add_argument("--out", required=True, help="output folder (cube.zarr, series.csv, summary.json, ...)")
+    sq.add_argument("--frames", help="START:STOP:STEP frames to use, 0-based, STOP excluded (default all)")
+    sq.add_argument("--fps", type=float, help="frames per second (default: the video's own; else times are frame "
+                                              "numbers)")
+    sq.add_argument("--anchor", action="append", help="X,Y,NM: a pixel of known thickness in the first frame")
+    sq.add_argument("--range", default="0:1500", help="MIN:MAX thickness, nm (default 0:1500)")
+    sq.add_argument("--point", action="append", help="X,Y: follow the thickness at this pixel (repeatable)")
+    sq.add_argument("--region", action="append", help="X0,Y0,X1,Y1: follow the mean in this rectangle")
+    sq.add_argument("--line", help="X0,Y0,X1,Y1: record the thickness along this line (kymograph)")
+    sq.add_argument("--pixel-size", type=float, help="µm per pixel on the film (gives volumes)")
+    sq.add_argument("--chunk", type=int, help="frames per task (default: up to 16, so each worker gets several)")
+    sq.add_argument("--scheduler", default="local",
+                    help="serial (this process), local (Dask workers on this machine, the default) or the "
+                         "address of a running Dask scheduler, tcp://HOST:PORT")
+    sq.add_argument("--workers", type=int, default=max(1, min(8, os.cpu_count() or 1)),
+                    help="worker processes for --scheduler local (default: one per core, up to 8)")
+    sq.add_argument("--export", action="append", choices=("tiff", "mp4", "gif"),
+                    help="also write thickness.tif (float32 stack) or a movie with a colour bar (repeatable)")
+    sq.add_argument("--json", action="store_true", help="print the summary as JSON")
+    sq.set_defaults(run=_sequence)
     return parser
+
+
+def _sequence(args):
+    from pathlib import Path
+
+    from .frames import open_frames
+    from .sequence import export_movie, export_tiff_stack, run_sequence
+
+    stack = _film_stack(args.stack)
+    lo, hi = parse_range(args.range, "--range", 2)
+    anchors = [(int(x), int(y), t) for x, y, t in (_numbers(a, 3, "--anchor X,Y,NM") for a in args.anchor or [])]
+    points = [tuple(int(v) for v in _numbers(p, 2, "--point X,Y")) for p in args.point or []]
+    regions = [tuple(int(v) for v in _numbers(r, 4, "--region X0,Y0,X1,Y1")) for r in args.region or []]
+    line = None if not args.line else tuple(int(v) for v in _numbers(args.line, 4, "--line X0,Y0,X1,Y1"))
+    if args.pixel_size is not None and args.pixel_size <= 0:
+        raise FilmcalcError("--pixel-size must be > 0 µm.")
+    source = open_frames(args.input, args.frames, args.fps)
+    state = {"shown": -1.0}
+
+    def progress(done, total, message):
+        fraction = done / max(total, 1)
+        if not args.json and (fraction - state["shown"] >= 0.01 or done == total):
+            state["shown"] = fraction
+            print(f"\r[{'#' * int(30 * fraction):<30}] {done}/{total} frames  {message:<45}", end="",
+                  file=sys.stderr, flush=True)
+
+    result = run_sequence(source, stack, args.out, range_nm=(lo, hi), anchors=anchors,
+                          pixel_size_um=args.pixel_size, points=points, regions=regions, line=line,
+                          chunk=args.chunk, scheduler=args.scheduler, workers=args.workers, progress=progress)
+    if not args.json:
+        print(file=sys.stderr)
+    _warn(result.warnings)
+    out = Path(args.out)
+    exports = []
+    for kind in args.export or []:
+        if kind == "tiff":
+            exports.append(str(export_tiff_stack(out, out / "thickness.tif")))
+        else:
+            exports.append(str(export_movie(out, out / f"thickness.{kind}", fps=min(source.fps or 10.0, 25.0))))
+    summary = result.summary()
+    summary["exports"] = exports
+    (out / "summary.json").write_text(json.dumps(summary, indent=1), encoding="utf-8")
+    if args.json:
+        json.dump(summary, sys.stdout, indent=1)
+        print()
+        return
+    print(f"{summary['frames_mapped']} of {summary['frames_selected']} frames mapped in {summary['seconds']} s "
+          f"on {result.scheduler}; cube and series in {out}")
+    for skipped in summary["frames_skipped"]:
+        if skipped["status"] != "ruptured":
+            print(f"  skipped {skipped['frame']} ({skipped['status']}): {skipped['reason']}")
+    if result.rupture_index is not None:
+        print(f"rupture at {result.names[result.rupture_index]}, t = {result.rupture_time_s:.4f} s")
+    if result.fit is not None:
+        print(f"thinning law h = A·(t − t0)^−α: α = {result.fit.alpha:.4f} ± {result.fit.alpha_sigma:.4f}, "
+              f"t0 = {result.fit.t0_s:.4f} s, A = {result.fit.amplitude_nm:.1f} nm")
+    else:
+        print(result.fit_note)
 
 
 def _add_spectrum_options(p):
