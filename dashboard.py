@@ -14,6 +14,7 @@ pages = [
     st.Page("filmcalc/ui/spectrum_fit.py", title="Spectrum fit", icon=":material/ssid_chart:"),
     st.Page("filmcalc/ui/spectrum_map.py", title="Map of spectra", icon=":material/grid_on:"),
     st.Page("filmcalc/ui/fringe_analysis.py", title="Fringes", icon=":material/waves:"),
+    st.Page("filmcalc/ui/film_sequence.py", title="Film over time", icon=":material/movie:"),
     st.Page("filmcalc/ui/stack_builder.py", title="Stack builder", icon=":material/layers:"),
     st.Page("filmcalc/ui/safety.py", title="Cautions", icon=":material/health_and_safety:"),
 ]

@@ -18,6 +18,9 @@ spectrum_figure
     Reflectance spectrum (s, p, unpolarised) at one thickness and angle.
 calibration_figure, map_figure
     Diagnostics and results of the photo inversion.
+thinning_figure, kymograph_figure
+    A film over time: mean thickness with the fitted thinning law, and
+    thickness along a line against time.
 bench_chart, thickness_angle_chart_image, save_bench_chart
     A printable chart of labelled swatches with a title block (PNG or PDF,
     A4 or Letter), drawn with matplotlib so no browser is needed.
@@ -44,7 +47,7 @@ from .errors import FilmcalcError
 
 __all__ = ["THICKNESS_UNITS", "thickness_unit", "colour_table", "colour_strip_figure", "thickness_angle_figure",
            "reflectance_map_figure", "chromaticity_figure", "spectrum_figure", "bench_chart",
-           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure"]
+           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure", "thinning_figure", "kymograph_figure"]
 
 THICKNESS_UNITS = {"nm": 1.0, "µm": 1e-3, "Å": 10.0}
 _UNIT_ALIASES = {"nm": "nm", "um": "µm", "µm": "µm", "micron": "µm", "a": "Å", "å": "Å", "angstrom": "Å"}
@@ -291,6 +294,52 @@ def map_figure(values, title, label, colorscale="cividis", zmin=None, zmax=None,
                                              "<extra></extra>"))
     fig.update_layout(title=title, height=420, margin={"l": 10, "r": 10, "t": 40, "b": 10})
     fig.update_yaxes(autorange="reversed", scaleanchor="x", scaleratio=1)
+    return fig
+
+
+def thinning_figure(time_s, series, fit=None, rupture_s=None, log=False, title=None):
+    """Thickness against time: the mean (and any other series), the fitted law h = A·(t − t₀)^−α, the rupture.
+
+    Parameters
+    ----------
+    time_s : array_like
+    series : dict of {name: array_like}
+        Thicknesses in nm, NaN where none (e.g. ``{"mean": ...}``).
+    fit : filmcalc.series.PowerLawFit, optional
+    rupture_s : float, optional
+    log : bool
+        Log–log axes against t − t₀ (a power law is a straight line there); needs ``fit``.
+    """
+    t = np.asarray(time_s, float)
+    shift = fit.t0_s if (log and fit is not None) else 0.0
+    x_label = "t − t₀ (s)" if shift else "time (s)"
+    fig = go.Figure()
+    for name, values in series.items():
+        fig.add_trace(go.Scatter(x=t - shift, y=values, mode="markers", name=name, marker={"size": 6},
+                                 hovertemplate=f"%{{x:.4g}} s<br>%{{y:.1f}} nm<extra>{name}</extra>"))
+    if fit is not None:
+        tt = np.linspace(np.nanmin(t), np.nanmax(t) if rupture_s is None else rupture_s, 200)
+        fig.add_trace(go.Scatter(x=tt - shift, y=fit.thickness_nm(tt), mode="lines", line={"color": "#d62728"},
+                                 name=f"h ∝ (t − t₀)^−α, α = {fit.alpha:.3f} ± {fit.alpha_sigma:.3f}"))
+    if rupture_s is not None and not shift:
+        fig.add_vline(x=rupture_s, line={"dash": "dash", "color": "#555"}, annotation_text="rupture")
+    fig.update_layout(title=title, height=380, margin={"l": 10, "r": 10, "t": 40 if title else 20, "b": 10},
+                      xaxis_title=x_label, yaxis_title="thickness (nm)", legend={"orientation": "h", "y": -0.25})
+    if shift:
+        fig.update_xaxes(type="log")
+        fig.update_yaxes(type="log")
+    return fig
+
+
+def kymograph_figure(kymograph_nm, time_s, title=None, colorscale="cividis"):
+    """Thickness along a line (x: distance, px) against time (y, s), as a heatmap."""
+    k = np.asarray(kymograph_nm, float)
+    fig = go.Figure(go.Heatmap(z=k, x=np.arange(k.shape[1]), y=np.asarray(time_s, float), colorscale=colorscale,
+                               colorbar={"title": "nm"},
+                               hovertemplate="%{x} px along the line<br>t %{y:.4g} s<br>%{z:.1f} nm<extra></extra>"))
+    fig.update_layout(title=title, height=380, margin={"l": 10, "r": 10, "t": 40 if title else 20, "b": 10},
+                      xaxis_title="distance along the line (px)", yaxis_title="time (s)")
+    fig.update_yaxes(autorange="reversed")
     return fig
 
 

@@ -158,3 +158,28 @@ def test_fringes_page_demos_map_and_line():
     at.button(key="fr_run").click().run()
     assert not at.exception and not at.error
     assert any(m.label == "fringe extrema crossed" for m in at.metric)
+
+
+def test_film_over_time_page_demo_run_and_scrub():
+    at = run_page("film_sequence.py", timeout=180)
+    assert not at.exception and not at.error
+    at.button(key="seq_run").click().run()
+    assert not at.exception and not at.error
+    metrics = {m.label: m.value for m in at.metric}
+    assert metrics["frames mapped"].endswith("of 40")
+    assert metrics["rupture"].startswith("t = ")
+    assert metrics["thinning exponent α"] != "no fit"
+    at.select_slider(key="seq_scrub").set_value(5).run()
+    assert not at.exception and not at.error
+    at.checkbox(key="seq_log").check().run()
+    assert not at.exception
+    at.button(key="seq_make_gif").click().run()
+    assert not at.exception and not at.error
+
+
+def test_film_over_time_page_bad_frame_range():
+    at = run_page("film_sequence.py")
+    name = at.selectbox(key="seq_demo").value
+    at.text_input(key=f"seq_frames::{name}").input("100:200").run()
+    assert not at.exception
+    assert any("selects no frame" in e.value for e in at.error)

@@ -1,0 +1,241 @@
+"""Film over time page: a recording (frames, multi-page TIFF, video) becomes a thickness cube and its series."""
+
+import json
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import plotly.graph_objects as go
+import streamlit as st
+
+from filmcalc.charts import kymograph_figure, map_figure, thinning_figure
+from filmcalc.errors import FilmcalcError
+from filmcalc.frames import IMAGE_SUFFIXES, VIDEO_SUFFIXES, open_frames
+from filmcalc.sequence import export_movie, export_tiff_stack, load_series, open_cube, run_sequence
+from filmcalc.ui.common import DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, stack_picker
+
+SEQUENCE_DIR = DEMO_DIR / "sequences"
+
+st.title("Film over time")
+st.write("Load a recording of a film (a folder of frames, a multi-page TIFF or a video) and map every frame to "
+         "thickness, each frame continuing the one before, to follow the film as it thins: thickness at points, "
+         "along a line, its mean, volume and thinning law, and when it breaks.")
+
+
+def workspace():
+    """A folder of this browser session's own for uploads and results (removed with the session's temp files)."""
+    if "seq_workspace" not in st.session_state or not Path(st.session_state["seq_workspace"]).exists():
+        st.session_state["seq_workspace"] = tempfile.mkdtemp(prefix="filmcalc-sequence-")
+    return Path(st.session_state["seq_workspace"])
+
+
+demos = {json.loads(p.read_text())["recording"]: json.loads(p.read_text())
+         for p in sorted(SEQUENCE_DIR.glob("*.json"))}
+choice = st.radio("Recording", ["demo recording", "my recording"], horizontal=True, key="seq_source")
+if choice == "demo recording":
+    name = st.selectbox("Demo recording", list(demos), key="seq_demo",
+                        help="Invented recordings rendered by demo_data/make_demo_sequence.py.")
+    settings = demos[name]
+    path = SEQUENCE_DIR / name
+    choose_demo_stack(settings["stack"], f"seq::{name}")
+    st.caption(f"What the lab knows: {settings['note']}.")
+else:
+    settings = {}
+    uploads = st.file_uploader("A video, a multi-page TIFF, or several frames (PNG, TIFF, JPEG; sorted by name)",
+                               type=[s[1:] for s in VIDEO_SUFFIXES + IMAGE_SUFFIXES], accept_multiple_files=True,
+                               key="seq_upload")
+    if not uploads:
+        st.info("Upload a recording, or pick the demo recording above.")
+        cautions_box()
+        st.stop()
+    folder = workspace() / "input"
+    signature = [(u.name, u.size) for u in uploads]
+    if st.session_state.get("seq_upload_signature") != signature:
+        shutil.rmtree(folder, ignore_errors=True)
+        folder.mkdir(parents=True)
+        for u in uploads:
+            (folder / Path(u.name).name).write_bytes(u.getvalue())  # the base name only: no path from the upload
+        st.session_state["seq_upload_signature"] = signature
+    files = sorted(folder.iterdir())
+    single = len(files) == 1 and files[0].suffix.lower() in VIDEO_SUFFIXES + (".tif", ".tiff")
+    path, name = (files[0], files[0].name) if single else (folder, f"{len(files)} frames")
+
+text, base_dir, origin = stack_picker()
+stack = load_or_stop(text, base_dir, origin)
+
+with st.sidebar:
+    st.header("Recording")
+    fps = st.number_input("Frames per second", 0.0, 1e7, float(settings.get("fps", 0.0)), 1.0, key=f"seq_fps::{name}",
+                          help="0: the video's own rate; frames and TIFF pages then count as 1 s apart.")
+    frames_text = st.text_input("Frames (START:STOP:STEP)", "", key=f"seq_frames::{name}",
+                                help="0-based, STOP excluded; empty for all frames.")
+try:
+    source = open_frames(path, frames_text or None, fps or None)
+except FilmcalcError as exc:
+    st.error(str(exc))
+    st.stop()
+H, W = source.shape
+
+with st.sidebar:
+    st.header("What you know")
+    c1, c2 = st.columns(2)
+    rng = settings.get("range", [0, 1500])
+    lo = c1.number_input("Thinnest (nm)", 0.0, 50000.0, float(rng[0]), 10.0, key=f"seq_lo::{name}")
+    hi = c2.number_input("Thickest (nm)", 1.0, 50000.0, float(rng[1]), 10.0, key=f"seq_hi::{name}")
+    pixel = st.number_input("Pixel size on the film (µm)", 0.0, 1e6, float(settings.get("pixel_size_um", 0.0)), 1.0,
+                            key=f"seq_px::{name}", help="Gives the liquid volume; 0 if not known.")
+    use_anchor = st.checkbox("A pixel of known thickness in the first frame", False, key=f"seq_use_anchor::{name}")
+    if use_anchor:
+        cols = st.columns(3)
+        anchor = [cols[0].number_input("x", 0, W - 1, W // 2, key=f"seq_ax::{name}"),
+                  cols[1].number_input("y", 0, H - 1, H // 2, key=f"seq_ay::{name}"),
+                  cols[2].number_input("nm", 0.0, 50000.0, 0.0, key=f"seq_an::{name}")]
+    st.header("Where to follow it")
+    p_default = settings.get("point", [W // 2, H // 2])
+    cols = st.columns(2)
+    point = (cols[0].number_input("point x", 0, W - 1, int(p_default[0]), key=f"seq_px0::{name}"),
+             cols[1].number_input("point y", 0, H - 1, int(p_default[1]), key=f"seq_py0::{name}"))
+    l_default = settings.get("line", [W // 2, 0, W // 2, H - 1])
+    cols = st.columns(4)
+    line = tuple(cols[i].number_input(lbl, 0, (W if i % 2 == 0 else H) - 1, int(l_default[i]),
+                                      key=f"seq_l{i}::{name}") for i, lbl in enumerate(("x0", "y0", "x1", "y1")))
+    st.header("Where to run")
+    where = st.radio("Run on", ["this process", "local Dask workers"], key="seq_where",
+                     help="Dask workers map several frames at once (one per core); worth it for long recordings.")
+    workers = st.number_input("Workers", 1, 64, max(1, min(8, os.cpu_count() or 1)), key="seq_workers",
+                              disabled=where == "this process")
+
+# Preview: scrub the recording before running.
+k_preview = st.slider("Preview frame", 0, len(source) - 1, 0, key=f"seq_preview::{name}") if len(source) > 1 else 0
+try:
+    frame = source.read(k_preview)
+    preview = go.Figure(go.Image(z=np.rint(frame * 255).astype(np.uint8), hoverinfo="x+y"))
+    preview.add_trace(go.Scatter(x=[point[0]], y=[point[1]], mode="markers", marker={"symbol": "x", "size": 11,
+                                                                                     "color": "#ffbf00"},
+                                 name="point", hoverinfo="skip"))
+    preview.add_trace(go.Scatter(x=[line[0], line[2]], y=[line[1], line[3]], mode="lines", name="line",
+                                 line={"color": "#00c8ff", "width": 2}, hoverinfo="skip"))
+    preview.update_layout(height=320, margin={"l": 0, "r": 0, "t": 10, "b": 0}, showlegend=False,
+                          xaxis={"showgrid": False, "title": "x (px)"},
+                          yaxis={"showgrid": False, "scaleanchor": "x", "title": "y (px)"})
+    st.plotly_chart(preview, width="stretch")
+except FilmcalcError as exc:
+    st.warning(f"This frame cannot be shown: {exc}")
+time_text = f"t = {source.times_s()[k_preview]:.4g} s" if source.fps else "frame rate not known"
+st.caption(f"{source.names[k_preview]}, {time_text}; {len(source)} frames of {W} × {H} px selected.")
+
+run_key = (str(path), frames_text, fps, lo, hi, pixel, use_anchor, point, line, text)
+if st.button("Map every frame", type="primary", key="seq_run"):
+    out = workspace() / "run"
+    shutil.rmtree(out, ignore_errors=True)
+    bar = st.progress(0.0, "starting")
+    try:
+        result = run_sequence(source, stack, out, range_nm=(lo, hi),
+                              anchors=[tuple(anchor)] if use_anchor else (), pixel_size_um=pixel or None,
+                              points=[point], line=line, scheduler="serial" if where == "this process" else "local",
+                              workers=int(workers),
+                              progress=lambda d, n, m: bar.progress(min(d / max(n, 1), 1.0), f"{d}/{n} frames: {m}"))
+    except FilmcalcError as exc:
+        bar.empty()
+        st.error(str(exc))
+        st.stop()
+    bar.empty()
+    st.session_state["seq_result"] = {"key": run_key, "out": str(out), "summary": result.summary(),
+                                      "fit": result.fit}
+
+stored = st.session_state.get("seq_result")
+if not stored:
+    st.info("Set what you know in the sidebar, then map every frame.")
+    cautions_box()
+    st.stop()
+if stored["key"] != run_key:
+    st.warning("The settings changed since this result was computed: map again to update it.")
+out, summary, fit = Path(stored["out"]), stored["summary"], stored["fit"]
+try:
+    series = load_series(out)
+    cube, attrs = open_cube(out)
+except FilmcalcError as exc:
+    st.error(f"The last result is no longer available ({exc}); map again.")
+    st.stop()
+times = series["time_s"]
+for w in summary["warnings"]:
+    st.warning(w)
+
+cols = st.columns(4)
+cols[0].metric("frames mapped", f"{summary['frames_mapped']} of {summary['frames_selected']}")
+rupture = summary["rupture"]
+cols[1].metric("rupture", f"t = {rupture['time_s']:.4g} s" if rupture else "none seen")
+law = summary["thinning_law"]
+cols[2].metric("thinning exponent α", f"{law['alpha']:.3f} ± {law['alpha_sigma']:.3f}" if law else "no fit")
+cols[3].metric("throughput", f"{summary['frames_per_second_processed']:.2f} frames/s")
+if not law:
+    st.caption(summary["thinning_law_note"])
+
+tabs = st.tabs(["Maps over time", "Thickness against time", "Along the line", "Frames skipped", "Downloads"])
+with tabs[0]:
+    good = [k for k, s in enumerate(series["status"]) if s == "ok"]
+    k = st.select_slider("Frame", options=list(range(len(times))), value=good[0] if good else 0,
+                         format_func=lambda i: f"{i}: {series['frame'][i]} (t = {times[i]:.4g} s)", key="seq_scrub")
+    if series["status"][k] != "ok":
+        st.info(f"{series['frame'][k]}: {series['status'][k]}. {series['reason'][k]}")
+    else:
+        maps = cube["thickness_nm"]
+        sample = np.asarray(maps[good[0]])
+        lo_c, hi_c = np.nanpercentile(sample, [1, 99]) if np.isfinite(sample).any() else (0, 1)
+        fixed = st.checkbox("Same colour scale for every frame (that of the first)", True, key="seq_fixed")
+        st.plotly_chart(map_figure(np.asarray(maps[k]), f"{series['frame'][k]}, t = {times[k]:.4g} s", "nm",
+                                   zmin=lo_c if fixed else None, zmax=hi_c if fixed else None,
+                                   pixel_size_um=pixel or None), width="stretch")
+with tabs[1]:
+    log = st.checkbox("Log–log against t − t₀ (a power law is a straight line)", False, key="seq_log",
+                      disabled=fit is None)
+    shown = {"mean over the film": series["mean_nm"]}
+    point_col = next((c for c in series if c.startswith("point_1_")), None)
+    if point_col:
+        shown[f"at ({point[0]}, {point[1]})"] = series[point_col]
+    st.plotly_chart(thinning_figure(times, shown, fit, rupture["time_s"] if rupture else None, log=log),
+                    width="stretch")
+    c1, c2 = st.columns(2)
+    rate = go.Figure(go.Scatter(x=times, y=series["thinning_rate_nm_per_s"], mode="markers+lines",
+                                name="−dh/dt of the mean"))
+    rate.update_layout(height=300, xaxis_title="time (s)", yaxis_title="thinning rate (nm/s)",
+                       margin={"l": 10, "r": 10, "t": 20, "b": 10})
+    c1.plotly_chart(rate, width="stretch")
+    if pixel:
+        volume = go.Figure(go.Scatter(x=times, y=series["volume_nL"], mode="markers+lines"))
+        volume.update_layout(height=300, xaxis_title="time (s)", yaxis_title="liquid in the film (nL)",
+                             margin={"l": 10, "r": 10, "t": 20, "b": 10})
+        c2.plotly_chart(volume, width="stretch")
+    else:
+        c2.info("Give the pixel size to see the liquid volume in the film.")
+with tabs[2]:
+    if "kymograph_nm" in cube:
+        st.plotly_chart(kymograph_figure(np.asarray(cube["kymograph_nm"]), times), width="stretch")
+        st.caption(f"Thickness along the line ({line[0]}, {line[1]}) → ({line[2]}, {line[3]}) against time.")
+with tabs[3]:
+    skipped = summary["frames_skipped"]
+    if skipped:
+        st.dataframe(skipped, hide_index=True, width="stretch")
+    else:
+        st.success("Every frame was mapped.")
+with tabs[4]:
+    st.download_button("Series (CSV)", (out / "series.csv").read_bytes(), "series.csv", key="seq_dl_csv")
+    st.download_button("Summary (JSON)", (out / "summary.json").read_bytes(), "summary.json", key="seq_dl_json")
+    c1, c2 = st.columns(2)
+    if c1.button("Prepare the TIFF stack (float32, nm)", key="seq_make_tiff"):
+        export_tiff_stack(out, out / "thickness.tif")
+    if (out / "thickness.tif").exists():
+        c1.download_button("Thickness stack (TIFF)", (out / "thickness.tif").read_bytes(), "thickness.tif",
+                           key="seq_dl_tiff")
+    if c2.button("Prepare the movie (animated GIF)", key="seq_make_gif"):
+        bar = st.progress(0.0, "rendering")
+        export_movie(out, out / "thickness.gif", fps=min(source.fps or 10.0, 20.0),
+                     progress=lambda d, n, m: bar.progress(d / n, m))
+        bar.empty()
+    if (out / "thickness.gif").exists():
+        c2.download_button("Movie (GIF)", (out / "thickness.gif").read_bytes(), "thickness.gif", key="seq_dl_gif")
+    st.caption("The full cube (cube.zarr, readable with dask.array.from_zarr) is written by the command "
+               "`filmcalc sequence`; see the README.")
+cautions_box()
