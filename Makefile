@@ -27,6 +27,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_chart.py
 	$(BIN)/python benchmarks/bench_photo.py
 	$(BIN)/python benchmarks/bench_spectra.py
+	$(BIN)/python benchmarks/bench_sequence.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache .hypothesis
