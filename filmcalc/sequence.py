@@ -76,7 +76,7 @@ from .series import check_geometry, fit_power_law, frame_measures, rupture_frame
 from .stack import stack_to_dict
 from .thickness import CameraModel, build_lookup, thickness_map
 
-__all__ = ["SequenceSetup", "SequenceResult", "run_sequence", "open_cube", "load_series", "export_tiff_stack",
+__all__ = ["SequenceSetup", "SequenceResult", "run_sequence", "start_local_cluster", "open_cube", "load_series", "export_tiff_stack",
            "export_movie", "STATUS", "DEFAULT_CHUNK"]
 
 DEFAULT_CHUNK = 16
@@ -326,6 +326,34 @@ class _Serial:
         pass
 
 
+def start_local_cluster(workers=2):
+    """A Dask LocalCluster on loopback: ``workers`` single-threaded worker processes, no web dashboard.
+
+    Two adjustments make it fit for this work:
+
+    * Dask's default MALLOC_TRIM_THRESHOLD_ for workers makes glibc map and unmap every large
+      array afresh (page faults each time): thickness maps then run about 1.5× slower. The
+      workers keep arrays up to 32 MB on the heap instead, as a plain Python process does.
+    * Worker processes are spawned, and a spawned process runs the parent's ``__main__`` file
+      again. Under Streamlit (and in test runners) that file is a page script, which must not
+      run in a worker, so the workers start with an empty ``__main__``; tasks only use filmcalc.
+    """
+    import sys
+    import types
+
+    import dask
+    import distributed
+
+    main = sys.modules.get("__main__")
+    sys.modules["__main__"] = types.ModuleType("__main__")
+    try:
+        with dask.config.set(WORKER_MALLOC):
+            return distributed.LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
+                                            host="127.0.0.1", dashboard_address=None, silence_logs=logging.ERROR)
+    finally:
+        sys.modules["__main__"] = main
+
+
 class _Dask:
     """Runs tasks on a Dask distributed cluster: a LocalCluster by default, or one at an address."""
 
@@ -334,15 +362,7 @@ class _Dask:
 
         self.cluster = None
         if scheduler in (None, "local"):
-            import dask
-
-            # Dask's default MALLOC_TRIM_THRESHOLD_ for workers makes glibc map and unmap every large
-            # array afresh (page faults on each): thickness maps then run ~1.5× slower. Letting the
-            # workers keep arrays up to 32 MB on the heap, as a plain process does, restores the speed.
-            with dask.config.set(WORKER_MALLOC):
-                self.cluster = distributed.LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                                        host="127.0.0.1", dashboard_address=None,
-                                                        silence_logs=logging.ERROR)
+            self.cluster = start_local_cluster(workers)
             self.client = distributed.Client(self.cluster)
             self.name = f"local Dask cluster ({workers} workers)"
         else:

@@ -183,3 +183,14 @@ def test_film_over_time_page_bad_frame_range():
     at.text_input(key=f"seq_frames::{name}").input("100:200").run()
     assert not at.exception
     assert any("selects no frame" in e.value for e in at.error)
+
+
+def test_film_over_time_page_on_local_dask_workers():
+    at = run_page("film_sequence.py", timeout=180)
+    name = at.selectbox(key="seq_demo").value
+    at.text_input(key=f"seq_frames::{name}").input("0:12").run()
+    at.radio(key="seq_where").set_value("local Dask workers").run()
+    at.number_input(key="seq_workers").set_value(2).run()
+    at.button(key="seq_run").click().run()
+    assert not at.exception and not at.error
+    assert {m.label: m.value for m in at.metric}["frames mapped"] == "12 of 12"

@@ -15,7 +15,8 @@ from PIL import Image
 from filmcalc import cli, synthetic
 from filmcalc.errors import FilmcalcError
 from filmcalc.frames import open_frames
-from filmcalc.sequence import export_movie, export_tiff_stack, load_series, open_cube, run_sequence
+from filmcalc.sequence import (export_movie, export_tiff_stack, load_series, open_cube, run_sequence,
+                               start_local_cluster)
 from filmcalc.stack import load_stack
 
 FPS = 20.0
@@ -105,10 +106,8 @@ def test_series_file_volume_and_kymograph(serial_run, movie):
 
 
 def test_local_cluster_equals_serial(serial_run, movie, stack, tmp_path):
-    distributed = pytest.importorskip("distributed")
     folder, _ = movie
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                  dashboard_address=None) as cluster:
+    with start_local_cluster(2) as cluster:  # two worker processes on loopback, started by the test
         result = run_sequence(open_frames(folder, fps=FPS), stack, tmp_path, range_nm=(0, 1300),
                               pixel_size_um=5.0, points=[(64, 48)], regions=[(10, 10, 40, 30)],
                               line=(64, 0, 64, 95), scheduler=cluster.scheduler_address, chunk=4)
