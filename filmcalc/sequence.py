@@ -23,13 +23,13 @@ which keeps the fringe order from frame to frame as long as the film changes by
 less than about a third of a fringe period between them.
 
 Temporal continuity is carried by a coarse chain: every frame, decimated to at
-most 128 pixels a side, is mapped with the previous frame's coarse map as its
+most 64 pixels a side, is mapped with the previous frame's coarse map as its
 prior, frame after frame through the recording. The full-resolution map of a
 frame then takes its own frame's coarse map (upsampled) as prior. The chain is
-light (about a sixtieth of the pixels of a megapixel frame); the full-resolution maps
+light (a 250th of the pixels of a megapixel frame; a tenth of its time); the full-resolution maps
 are independent of one another given the chain, so they run in parallel. The
-frames are cut into chunks of K (by default up to 16, fewer when that gives
-each worker at least three chunks). The calling process runs the chain, chunk
+frames are cut into chunks of K (by default 16 frames in a serial run, 4 on
+Dask, so that workers start soon after the chain). The calling process runs the chain, chunk
 after chunk, and hands each chunk's full-resolution maps to the workers as soon
 as its part of the chain is done, so the chain and the maps overlap. The serial
 runner calls the same functions on the same inputs, so both write the same
@@ -79,7 +79,8 @@ from .thickness import CameraModel, build_lookup, thickness_map
 __all__ = ["SequenceSetup", "SequenceResult", "run_sequence", "start_local_cluster", "open_cube", "load_series", "export_tiff_stack",
            "export_movie", "STATUS", "DEFAULT_CHUNK"]
 
-DEFAULT_CHUNK = 16
+DEFAULT_CHUNK = 16  # frames per chunk, serial runs (fewer, larger zarr chunks)
+DASK_CHUNK = 4  # frames per task on Dask: small, so workers start soon after the chain (our choice)
 STATUS = ("ok", "unreadable", "blank", "ruptured")
 _CUBE = "cube.zarr"
 _CHUNK_BYTES = 64 << 20  # largest zarr chunk of thickness (one array), bytes (our choice)
@@ -203,7 +204,7 @@ def _use_threads(setup):
         thickness._WORKERS = setup.threads
 
 
-COARSE_SIDE = 128  # the coarse chain takes every 2nd pixel or more, at most this many a side (our choice)
+COARSE_SIDE = 64  # the coarse chain takes every 2nd pixel or more, at most this many a side (our choice)
 
 
 def _coarse_step(shape):
@@ -414,8 +415,8 @@ def run_sequence(source, stack, out_dir, *, range_nm=(0.0, 1500.0), anchors=(), 
     points, regions, line
         Where to follow the thickness (see :func:`filmcalc.series.frame_measures`).
     chunk : int, optional
-        Frames per chunk (K in the module docstring); by default up to ``DEFAULT_CHUNK``, fewer
-        so that each worker gets at least three chunks.
+        Frames per chunk (K in the module docstring); by default ``DEFAULT_CHUNK`` when serial,
+        ``DASK_CHUNK`` on Dask.
     scheduler : {"serial", "local"} or str
         ``"serial"`` runs in this process; ``"local"`` starts a Dask LocalCluster with ``workers``
         single-threaded worker processes on this machine; ``"tcp://HOST:PORT"`` uses an existing
@@ -447,33 +448,32 @@ def run_sequence(source, stack, out_dir, *, range_nm=(0.0, 1500.0), anchors=(), 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     if chunk is None:
-        spread = 1 if scheduler == "serial" else 3 * int(workers)
-        chunk = int(min(DEFAULT_CHUNK, max(2, math.ceil(n / spread))))
+        chunk = DEFAULT_CHUNK if scheduler == "serial" else DASK_CHUNK
     chunk = int(chunk)
     time_chunk = _time_chunk(source.shape, chunk)
     warnings = []
 
-    # The first readable frame: calibration and the colour lookup.
-    report(0, n, "calibrating on the first frame")
-    lookup = build_lookup(stack, range_nm)
-    first_k, first_map, early = None, None, []
-    for k, frame in source.iterate(0, n):
-        if isinstance(frame, Exception) or np.ptp(frame) < 4 / 255:
-            early.append(_map_one(None, k, frame, None))
-            continue
-        try:
-            first_map = thickness_map(frame, stack, range_nm, anchors=anchors, reference=reference,
-                                      lookup=lookup, tolerance=tolerance, pixel_size_um=pixel_size_um)
-        except FilmcalcError as exc:
-            if anchors or reference is not None:
-                raise FilmcalcError(f"{source.names[k]} (the first frame to map): {exc}") from None
-            early.append(_Frame(k, "blank", str(exc), None, None, None, {}, 0.0))
-            continue
-        first_k = k
-        break
-    if first_k is None:
-        raise FilmcalcError("No frame of the selection could be mapped: "
-                            + "; ".join(f"{source.names[f.k]}: {f.reason}" for f in early[:3]))
+    # The first readable frame gives the calibration; a Dask cluster starts (or is reached) while the first frame is calibrated.
+    starting = None
+    if scheduler != "serial":
+        from concurrent.futures import ThreadPoolExecutor
+
+        pool = ThreadPoolExecutor(1)
+        starting = pool.submit(_Dask, scheduler, int(workers))
+        pool.shutdown(wait=False)
+    try:
+        report(0, n, "calibrating on the first frame")
+        lookup = build_lookup(stack, range_nm)
+        first_k, first_map, early = _first_frame(source, stack, range_nm, anchors, reference, tolerance,
+                                                 pixel_size_um, lookup)
+        runner = _Serial() if starting is None else starting.result()
+    except BaseException:
+        if starting is not None:
+            try:
+                starting.result().close()
+            except Exception:  # the cluster failed to start: the first error is the one to report
+                pass
+        raise
     if first_k and (anchors or reference is not None):
         warnings.append(f"The anchors were placed on {source.names[first_k]}, the first frame that could be read.")
     setup = SequenceSetup(stack, tuple(range_nm), lookup, first_map.camera, pixel_size_um, points, regions, line,
@@ -487,7 +487,6 @@ def run_sequence(source, stack, out_dir, *, range_nm=(0.0, 1500.0), anchors=(), 
 
     # Chunks from the first mapped frame on (frames before it were skipped).
     plan = [(a + first_k, b + first_k) for a, b in _chunks(n - first_k, chunk)]
-    runner = _Serial() if scheduler == "serial" else _Dask(scheduler, int(workers))
     records = list(early)
     try:
         report(len(records) + 1, n, f"mapping frames on {runner.name}")
@@ -498,6 +497,28 @@ def run_sequence(source, stack, out_dir, *, range_nm=(0.0, 1500.0), anchors=(), 
     report(n, n, "time series, thinning law and rupture")
     return _finish(source, stack, out_dir, records, first_map, setup, runner, chunk, anchors, reference, warnings,
                    time.perf_counter() - t_start)
+
+
+def _first_frame(source, stack, range_nm, anchors, reference, tolerance, pixel_size_um, lookup):
+    """Map the first frame that can be mapped (with the anchors, calibrating the camera).
+
+    Returns its index, its ThicknessMap and the records of the frames skipped before it."""
+    early = []
+    for k, frame in source.iterate(0, len(source)):
+        if isinstance(frame, Exception) or np.ptp(frame) < 4 / 255:
+            early.append(_map_one(None, k, frame, None))
+            continue
+        try:
+            tmap = thickness_map(frame, stack, range_nm, anchors=anchors, reference=reference, lookup=lookup,
+                                 tolerance=tolerance, pixel_size_um=pixel_size_um)
+        except FilmcalcError as exc:
+            if anchors or reference is not None:
+                raise FilmcalcError(f"{source.names[k]} (the first frame to map): {exc}") from None
+            early.append(_Frame(k, "blank", str(exc), None, None, None, {}, 0.0))
+            continue
+        return k, tmap, early
+    raise FilmcalcError("No frame of the selection could be mapped: "
+                        + "; ".join(f"{source.names[f.k]}: {f.reason}" for f in early[:3]))
 
 
 def _run_plan(runner, source, setup, plan, first, total, done, report):
