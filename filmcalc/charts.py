@@ -47,7 +47,7 @@ from .errors import FilmcalcError
 
 __all__ = ["THICKNESS_UNITS", "thickness_unit", "colour_table", "colour_strip_figure", "thickness_angle_figure",
            "reflectance_map_figure", "chromaticity_figure", "spectrum_figure", "bench_chart",
-           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure", "thinning_figure", "kymograph_figure"]
+           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure", "thinning_figure", "kymograph_figure", "plus_minus"]
 
 THICKNESS_UNITS = {"nm": 1.0, "µm": 1e-3, "Å": 10.0}
 _UNIT_ALIASES = {"nm": "nm", "um": "µm", "µm": "µm", "micron": "µm", "a": "Å", "å": "Å", "angstrom": "Å"}
@@ -292,7 +292,8 @@ def map_figure(values, title, label, colorscale="cividis", zmin=None, zmax=None,
                                zmin=zmin, zmax=zmax, colorbar={"title": label},
                                hovertemplate=f"x %{{x:.4g}} {unit}, y %{{y:.4g}} {unit}<br>{label} %{{z:.4g}}"
                                              "<extra></extra>"))
-    fig.update_layout(title=title, height=420, margin={"l": 10, "r": 10, "t": 40, "b": 10})
+    fig.update_layout(title=title, height=420, margin={"l": 10, "r": 10, "t": 40, "b": 10},
+                      xaxis_title=f"x ({unit})", yaxis_title=f"y ({unit})")
     fig.update_yaxes(autorange="reversed", scaleanchor="x", scaleratio=1)
     return fig
 
@@ -320,7 +321,7 @@ def thinning_figure(time_s, series, fit=None, rupture_s=None, log=False, title=N
     if fit is not None:
         tt = np.linspace(np.nanmin(t), np.nanmax(t) if rupture_s is None else rupture_s, 200)
         fig.add_trace(go.Scatter(x=tt - shift, y=fit.thickness_nm(tt), mode="lines", line={"color": "#d62728"},
-                                 name=f"h ∝ (t − t₀)^−α, α = {fit.alpha:.3f} ± {fit.alpha_sigma:.3f}"))
+                                 name=f"h ∝ (t − t₀)^−α, α = {plus_minus(fit.alpha, fit.alpha_sigma)}"))
     if rupture_s is not None and not shift:
         fig.add_vline(x=rupture_s, line={"dash": "dash", "color": "#555"}, annotation_text="rupture")
     fig.update_layout(title=title, height=380, margin={"l": 10, "r": 10, "t": 40 if title else 20, "b": 10},
@@ -329,6 +330,14 @@ def thinning_figure(time_s, series, fit=None, rupture_s=None, log=False, title=N
         fig.update_xaxes(type="log")
         fig.update_yaxes(type="log")
     return fig
+
+
+def plus_minus(value, sigma):
+    """``value ± sigma`` with σ to two significant figures and the value to the same decimal place."""
+    if not (np.isfinite(sigma) and sigma > 0):
+        return f"{value:.4g}"
+    decimals = max(0, 1 - int(np.floor(np.log10(sigma))))
+    return f"{value:.{decimals}f} ± {sigma:.{decimals}f}"
 
 
 def kymograph_figure(kymograph_nm, time_s, title=None, colorscale="cividis"):

@@ -10,7 +10,7 @@ import numpy as np
 import plotly.graph_objects as go
 import streamlit as st
 
-from filmcalc.charts import kymograph_figure, map_figure, thinning_figure
+from filmcalc.charts import kymograph_figure, map_figure, plus_minus, thinning_figure
 from filmcalc.errors import FilmcalcError
 from filmcalc.frames import IMAGE_SUFFIXES, VIDEO_SUFFIXES, open_frames
 from filmcalc.sequence import export_movie, export_tiff_stack, load_series, open_cube, run_sequence
@@ -163,15 +163,15 @@ times = series["time_s"]
 for w in summary["warnings"]:
     st.warning(w)
 
-cols = st.columns(4)
+cols = st.columns(3)
 cols[0].metric("frames mapped", f"{summary['frames_mapped']} of {summary['frames_selected']}")
 rupture = summary["rupture"]
 cols[1].metric("rupture", f"t = {rupture['time_s']:.4g} s" if rupture else "none seen")
 law = summary["thinning_law"]
-cols[2].metric("thinning exponent α", f"{law['alpha']:.3f} ± {law['alpha_sigma']:.3f}" if law else "no fit")
-cols[3].metric("throughput", f"{summary['frames_per_second_processed']:.2f} frames/s")
-if not law:
-    st.caption(summary["thinning_law_note"])
+cols[2].metric("thinning exponent α", plus_minus(law["alpha"], law["alpha_sigma"]) if law else "no fit",
+               help="h = A·(t − t₀)^−α fitted to the mean thickness before the rupture; ± 1σ.")
+st.caption(f"{summary['thinning_law_note']} Mapped at {summary['frames_per_second_processed']:.2f} frames/s on "
+           f"{summary['scheduler']}.")
 
 tabs = st.tabs(["Maps over time", "Thickness against time", "Along the line", "Frames skipped", "Downloads"])
 with tabs[0]:
