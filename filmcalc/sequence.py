@@ -716,7 +716,7 @@ def export_movie(out_dir, path, fps=10.0, every=1, vmin=None, vmax=None, max_hei
     vmin, vmax : float, optional
         Colour scale, nm (default: 1st and 99th percentiles over a sample of frames).
     max_height : int
-        Frames are shrunk to at most this height, px.
+        Frames are shrunk to at most this height, px (and frames under 300 px enlarged by a whole factor).
     """
     import matplotlib
     from PIL import Image
@@ -736,7 +736,7 @@ def export_movie(out_dir, path, fps=10.0, every=1, vmin=None, vmax=None, max_hei
         vmin = lo if vmin is None else vmin
         vmax = hi if vmax is None else vmax
     vmax = max(vmax, vmin + 1e-6)
-    scale = min(1.0, max_height / H)
+    scale = max_height / H if H > max_height else float(math.ceil(300 / H))  # small frames are enlarged
     h, w = max(2, int(H * scale) // 2 * 2), max(2, int(W * scale) // 2 * 2)
     lut = (matplotlib.colormaps["cividis"](np.linspace(0, 1, 256))[:, :3] * 255).astype(np.uint8)
     bar = _colour_bar(h, vmin, vmax, "cividis", "thickness (nm)")
@@ -748,10 +748,12 @@ def export_movie(out_dir, path, fps=10.0, every=1, vmin=None, vmax=None, max_hei
         index = np.clip((t - vmin) / (vmax - vmin) * 255, 0, 255)
         rgb = lut[np.nan_to_num(index).astype(np.uint8)]
         rgb[~np.isfinite(t)] = 255  # no thickness: white
-        rgb = np.asarray(Image.fromarray(rgb).resize((w, h)))
+        rgb = np.asarray(Image.fromarray(rgb).resize((w, h), Image.Resampling.NEAREST if scale > 1 else
+                                                     Image.Resampling.BILINEAR))
         canvas = np.full((h, width, 3), 255, np.uint8)
         canvas[:, :w], canvas[:, w:w + bar.shape[1]] = rgb, bar
-        _stamp(canvas, f"t = {times[k]:.3f} s")
+        status = attrs.get("status", ["ok"] * n)[k]
+        _stamp(canvas, f"t = {times[k]:.3f} s" + ("" if status == "ok" else f": {status}"))
         return canvas
 
     if kind == ".gif":
