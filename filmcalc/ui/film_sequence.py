@@ -168,10 +168,12 @@ cols[0].metric("frames mapped", f"{summary['frames_mapped']} of {summary['frames
 rupture = summary["rupture"]
 cols[1].metric("rupture", f"t = {rupture['time_s']:.4g} s" if rupture else "none seen")
 law = summary["thinning_law"]
-cols[2].metric("thinning exponent α", plus_minus(law["alpha"], law["alpha_sigma"]) if law else "no fit",
-               help="h = A·(t − t₀)^−α fitted to the mean thickness before the rupture; ± 1σ.")
-st.caption(f"{summary['thinning_law_note']} Mapped at {summary['frames_per_second_processed']:.2f} frames/s on "
-           f"{summary['scheduler']}.")
+cols[2].metric("thinning exponent α", f"{law['alpha']:.3f}" if law else "no fit",
+               help="h = A·(t − t₀)^−α fitted to the mean thickness before the rupture.")
+fitted = (f"α = {plus_minus(law['alpha'], law['alpha_sigma'])} (1σ), t₀ = {law['t0_s']:.4g} s, "
+          f"A = {law['amplitude_nm']:.4g} nm·s^α. ") if law else ""
+st.caption(f"{fitted}{summary['thinning_law_note']} Mapped at {summary['frames_per_second_processed']:.2f} "
+           f"frames/s on {summary['scheduler']}.")
 
 tabs = st.tabs(["Maps over time", "Thickness against time", "Along the line", "Frames skipped", "Downloads"])
 with tabs[0]:
