@@ -328,7 +328,8 @@ class _Serial:
 
 
 def start_local_cluster(workers=2):
-    """A Dask LocalCluster on loopback: ``workers`` single-threaded worker processes, no web dashboard.
+    """A Dask LocalCluster on loopback: ``workers`` single-threaded worker processes (its status page on a
+    free loopback port).
 
     Two adjustments make it fit for this work:
 
@@ -350,7 +351,8 @@ def start_local_cluster(workers=2):
     try:
         with dask.config.set(WORKER_MALLOC):
             return distributed.LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
-                                            host="127.0.0.1", dashboard_address=None, silence_logs=logging.ERROR)
+                                            host="127.0.0.1", dashboard_address="127.0.0.1:0",
+                                            silence_logs=logging.ERROR)
     finally:
         sys.modules["__main__"] = main
 
