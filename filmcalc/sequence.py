@@ -29,9 +29,10 @@ frame then takes its own frame's coarse map (upsampled) as prior. The chain is
 light (a 250th of the pixels of a megapixel frame; a tenth of its time); the full-resolution maps
 are independent of one another given the chain, so they run in parallel. The
 frames are cut into chunks of K (by default 16 frames in a serial run, 4 on
-Dask, so that workers start soon after the chain). The calling process runs the chain, chunk
-after chunk, and hands each chunk's full-resolution maps to the workers as soon
-as its part of the chain is done, so the chain and the maps overlap. The serial
+Dask, so that workers start soon after the chain). The calling process reads
+each frame once, in order, runs the chain, and sends each chunk's frames to the
+workers for their full-resolution maps as soon as the chain has passed them, so
+the chain and the maps overlap and workers never need the recording itself. The serial
 runner calls the same functions on the same inputs, so both write the same
 cube, bit for bit; the chunking changes how the work is shared out, never the
 result.
@@ -60,6 +61,7 @@ from __future__ import annotations
 import csv
 import dataclasses
 import datetime
+import itertools
 import json
 import logging
 import math
@@ -211,15 +213,11 @@ def _coarse_step(shape):
     return max(2, math.ceil(max(shape) / COARSE_SIDE))
 
 
-def _coarse_chain(source, setup, start, stop, previous):
-    """The coarse maps of frames start..stop−1, each with the previous coarse map as prior.
-
-    ``previous`` is the chain's state before ``start``: (coarse maps so far, the last coarse map).
-    Returns ({k: coarse thickness map or None}, the last coarse map, for the next link)."""
-    prior = previous[1]
-    step = _coarse_step(source.shape)
+def _coarse_chain(setup, frames, prior, step):
+    """The coarse maps of ``frames`` [(k, frame or FrameError)], each with the previous coarse map
+    as prior, starting from ``prior``. Returns ({k: coarse thickness map or None}, the last coarse map)."""
     maps = {}
-    for k, frame in source.iterate(start, stop):
+    for k, frame in frames:
         small = frame if isinstance(frame, Exception) else np.ascontiguousarray(frame[::step, ::step])
         result = _map_one(setup, k, small, prior, measure=False)
         maps[k] = result.thickness
@@ -228,10 +226,19 @@ def _coarse_chain(source, setup, start, stop, previous):
     return maps, prior
 
 
-def _run_chunk(source, setup, start, stop, chain, first=None):
-    """Frames start..stop−1 at full resolution, each with its own coarse map (from ``chain``) as
-    prior; ``first``, when given, is frame ``start`` already mapped. Writes the chunk's slabs of
-    the cube; returns the frames' records without their arrays."""
+def _pack(frame):
+    """A frame as 16-bit integers for sending to a worker (exact for 8- and 16-bit images: the
+    worker's k/65535 rounds to the same float32 as the reader's k/255 or k/65535)."""
+    if isinstance(frame, Exception):
+        return frame
+    return np.rint(np.clip(frame, 0.0, 1.0) * 65535.0).astype(np.uint16)
+
+
+def _run_chunk(setup, frames, coarse, step, first=None):
+    """Map ``frames`` [(k, frame packed by :func:`_pack`, or FrameError)] at full resolution, each with
+    its own coarse map (``coarse[k]``, upsampled) as prior; ``first``, when given, is the frame before
+    them, mapped already. Writes the chunk's slabs of the cube; returns the frames' records without
+    their arrays."""
     _use_threads(setup)
     import zarr
 
@@ -265,11 +272,12 @@ def _run_chunk(source, setup, start, stop, chain, first=None):
             done.append(dataclasses.replace(f, thickness=None, sigma=None, flags=None))
         slab.clear()
 
-    coarse, step = chain[0], _coarse_step(source.shape)
+    shape = cube["thickness_nm"].shape[1:]
     if first is not None:
         slab.append(first)
-    for k, frame in source.iterate(start + (first is not None), stop):
-        prior = None if coarse.get(k) is None else _upsample(coarse[k], step, source.shape)
+    for k, packed in frames:
+        frame = packed if isinstance(packed, Exception) else packed.astype(np.float32) / np.float32(65535.0)
+        prior = None if coarse.get(k) is None else _upsample(coarse[k], step, shape)
         slab.append(_map_one(setup, k, frame, prior))
         if (k + 1) % setup.time_chunk == 0:
             flush()
@@ -314,8 +322,8 @@ class _Serial:
     name = "serial"
     workers = 1
 
-    def prepare(self, source, setup):
-        return source, setup
+    def prepare(self, setup):
+        return setup
 
     def submit(self, function, *args):
         return function(*args)
@@ -377,10 +385,9 @@ class _Dask:
             self.name = f"Dask cluster at {scheduler}"
         self.workers = max(1, len(self.client.scheduler_info()["workers"]))
 
-    def prepare(self, source, setup):
+    def prepare(self, setup):
         """Send what every task shares to every worker once (single-threaded numpy in each)."""
-        setup = dataclasses.replace(setup, threads=1)
-        return self.client.scatter(source, broadcast=True), self.client.scatter(setup, broadcast=True)
+        return self.client.scatter(dataclasses.replace(setup, threads=1), broadcast=True)
 
     def submit(self, function, *args):
         return self.client.submit(function, *args, pure=False)
@@ -422,7 +429,8 @@ def run_sequence(source, stack, out_dir, *, range_nm=(0.0, 1500.0), anchors=(), 
     scheduler : {"serial", "local"} or str
         ``"serial"`` runs in this process; ``"local"`` starts a Dask LocalCluster with ``workers``
         single-threaded worker processes on this machine; ``"tcp://HOST:PORT"`` uses an existing
-        Dask cluster, whose workers must see the input and the output folder at the same paths.
+        Dask cluster, whose workers must see the output folder at the same path (they receive the
+        frames from this process).
     workers : int
         Worker processes for ``"local"``.
     progress : callable(done_frames, total_frames, message), optional
@@ -524,17 +532,22 @@ def _first_frame(source, stack, range_nm, anchors, reference, tolerance, pixel_s
 
 
 def _run_plan(runner, source, setup, plan, first, total, done, report):
-    """Run the coarse chain here, chunk by chunk, and hand each chunk's full-resolution maps to the
-    runner as soon as its part of the chain is done (at most a bounded window of them in flight)."""
+    """Read the frames once, in order; run the coarse chain here, chunk by chunk, and hand each
+    chunk's frames to the runner for their full-resolution maps as soon as the chain has passed
+    them (at most a bounded window of chunks in flight)."""
     window = 2 * runner.workers + 1
     pending, records = [], []
     step = _coarse_step(source.shape)
-    link = ({}, np.ascontiguousarray(first.thickness[::step, ::step]))
-    remote = runner.prepare(source, setup)
+    prior = np.ascontiguousarray(first.thickness[::step, ::step])
+    remote = runner.prepare(setup)
+    reading = source.iterate(first.k + 1, total)
     for j, (a, b) in enumerate(plan):
         # Chunk 0 starts with the calibration frame, mapped already (and counted).
-        link = _coarse_chain(source, setup, a + (j == 0), b, link)
-        task = runner.submit(_run_chunk, *remote, a, b, link, first if j == 0 else None)
+        frames = list(itertools.islice(reading, b - a - (j == 0)))
+        coarse, prior = _coarse_chain(setup, frames, prior, step)
+        task = runner.submit(_run_chunk, remote, [(k, _pack(f)) for k, f in frames], coarse, step,
+                             first if j == 0 else None)
+        del frames
         pending.append((task, b - a - (j == 0)))
         while len(pending) >= window or (j == len(plan) - 1 and pending):
             future, size = pending.pop(0)
