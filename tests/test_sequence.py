@@ -164,3 +164,15 @@ def test_cli_sequence_undecodable_video(demo_dir, tmp_path, capsys):
     code = cli.main(["sequence", str(bad), str(demo_dir / "soap-film-loop.toml"), "--out", str(tmp_path / "o")])
     assert code == 2
     assert "could not be decoded as video" in capsys.readouterr().err
+
+
+def test_frames_sent_to_workers_arrive_unchanged():
+    # 8- and 16-bit samples as the readers scale them (k/255, k/65535 in float32) survive the 16-bit packing.
+    from filmcalc.sequence import _pack
+
+    for scale in (255, 65535):
+        k = np.arange(scale + 1, dtype=np.float32)
+        frame = (k / np.float32(scale)).reshape(1, -1, 1)
+        packed = _pack(frame)
+        assert packed.dtype == np.uint16
+        assert np.array_equal(packed.astype(np.float32) / np.float32(65535.0), frame)
