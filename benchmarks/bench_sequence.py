@@ -12,7 +12,8 @@
   (goal: under 2 GB: frames stream, nothing holds the recording).
 
 Every frame is checked against the invented truth (fraction more than 25 nm off).
-Run: ``python benchmarks/bench_sequence.py [--frames N] [--long [--long-frames 2000]]``.
+Run: ``python benchmarks/bench_sequence.py [--frames N] [--long [--long-frames 2000] [--long-video FILE]]``
+(``--frames 0`` skips the speed part).
 """
 
 from __future__ import annotations
@@ -105,9 +106,11 @@ def speed(stack, n, folder):
     print(f"  Dask (2 local workers) / serial: {times['serial'] / times['local']:.2f}× (goal ≥ 1.7×)")
 
 
-def long_run(stack, n, folder):
+def long_run(stack, n, folder, video=None):
     import imageio_ffmpeg
 
+    if video is not None:  # a recording rendered by an earlier run of this script
+        return measure_long(stack, Path(video), folder)
     video = folder / "long.mp4"
     t0 = time.perf_counter()
     writer = imageio_ffmpeg.write_frames(str(video), SHAPE[::-1], fps=FPS, quality=None, macro_block_size=8,
@@ -117,6 +120,10 @@ def long_run(stack, n, folder):
         writer.send(np.rint(frame * 255).astype(np.uint8).tobytes())
     writer.close()
     print(f"  {n} frames rendered into {video.stat().st_size / 1e9:.2f} GB of video in {time.perf_counter() - t0:.0f} s")
+    measure_long(stack, video, folder)
+
+
+def measure_long(stack, video, folder):
     source = open_frames(video)
     t0 = time.perf_counter()
     with PeakMemory() as memory:
@@ -136,16 +143,18 @@ def main():
     parser.add_argument("--frames", type=int, default=96)
     parser.add_argument("--long", action="store_true")
     parser.add_argument("--long-frames", type=int, default=2000)
+    parser.add_argument("--long-video", help="use this recording (from an earlier --long run) instead of rendering")
     args = parser.parse_args()
     stack = load_stack(ROOT / "demo_data" / "soap-film-loop.toml")
     print(f"Frame sequences, {SHAPE[1]} × {SHAPE[0]} px frames, {psutil.cpu_count()} cores")
-    with tempfile.TemporaryDirectory() as tmp:
-        print(f"Speed, {args.frames} frames:")
-        speed(stack, args.frames, Path(tmp))
+    if args.frames:
+        with tempfile.TemporaryDirectory() as tmp:
+            print(f"Speed, {args.frames} frames:")
+            speed(stack, args.frames, Path(tmp))
     if args.long:
         with tempfile.TemporaryDirectory() as tmp:
             print(f"Memory, {args.long_frames} frames:")
-            long_run(stack, args.long_frames, Path(tmp))
+            long_run(stack, args.long_frames, Path(tmp), args.long_video)
 
 
 if __name__ == "__main__":

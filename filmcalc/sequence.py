@@ -325,6 +325,9 @@ class _Serial:
     def prepare(self, setup):
         return setup
 
+    def send(self, frames):
+        return frames
+
     def submit(self, function, *args):
         return function(*args)
 
@@ -388,6 +391,10 @@ class _Dask:
     def prepare(self, setup):
         """Send what every task shares to every worker once (single-threaded numpy in each)."""
         return self.client.scatter(dataclasses.replace(setup, threads=1), broadcast=True)
+
+    def send(self, frames):
+        """Frames go straight to a worker (futures), not through the scheduler inside the task."""
+        return self.client.scatter(frames, hash=False)
 
     def submit(self, function, *args):
         return self.client.submit(function, *args, pure=False)
@@ -545,7 +552,7 @@ def _run_plan(runner, source, setup, plan, first, total, done, report):
         # Chunk 0 starts with the calibration frame, mapped already (and counted).
         frames = list(itertools.islice(reading, b - a - (j == 0)))
         coarse, prior = _coarse_chain(setup, frames, prior, step)
-        task = runner.submit(_run_chunk, remote, [(k, _pack(f)) for k, f in frames], coarse, step,
+        task = runner.submit(_run_chunk, remote, runner.send([(k, _pack(f)) for k, f in frames]), coarse, step,
                              first if j == 0 else None)
         del frames
         pending.append((task, b - a - (j == 0)))
