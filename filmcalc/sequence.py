@@ -72,7 +72,7 @@ import numpy as np
 
 from . import __version__
 from .errors import FilmcalcError
-from .frames import FrameError, FrameSource, open_frames
+from .frames import FrameSource, open_frames
 from .io import save_provenance
 from .series import check_geometry, fit_power_law, frame_measures, rupture_frame, thinning_rate
 from .stack import stack_to_dict
