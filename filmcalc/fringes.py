@@ -108,7 +108,7 @@ from .appearance import fringe_order
 from .colour import srgb_decode
 from .errors import FilmcalcError
 from .optics import reflectance_sweep
-from .thickness import TRENDS, _blur_normalised, _Candidates, _candidates, _repick, _statistics
+from .thickness import TRENDS, _blur_normalised, _Candidates, _candidates, _repick, _statistics, _upsample
 
 __all__ = ["DIRECTIONS", "FLAGS", "FLAG_MEANINGS", "FringeMap", "FringeProfile", "fringe_map", "fringe_spacing_nm",
            "line_profile_thickness", "synthetic_wavelength", "unambiguous_span_nm"]
@@ -674,22 +674,6 @@ def _grow(cand_t, cand_d, cand_lo, cand_hi, fringe, flat_nm, seeds, period_nm, v
     return np.array([[np.nan if v is None else v for v in row] for row in chosen], dtype=float)
 
 
-def _upsample(coarse, step, offset, shape):
-    """Bilinear interpolation to ``shape`` of a grid whose node (i, j) is pixel (offset[0] + i·step,
-    offset[1] + j·step); constant beyond the outer nodes."""
-    h, w = coarse.shape
-    ys = np.clip((np.arange(shape[0]) - offset[0]) / step, 0, h - 1)
-    xs = (np.arange(shape[1]) - offset[1]) / step
-    rows = np.stack([np.interp(xs, np.arange(w), coarse[r]) for r in range(h)]).astype(np.float32)
-    y0 = np.floor(ys).astype(int)
-    y1 = np.minimum(y0 + 1, h - 1)
-    fy = (ys - y0)[:, None].astype(np.float32)
-    out = rows[y0]
-    out *= 1 - fy
-    out += fy * rows[y1]
-    return out
-
-
 def _stretch_table(model, tolerance):
     """The stretch of thickness around each of the model's thicknesses whose normalised intensities
     stay within ``tolerance`` of its own (distance over the wavelengths), contiguous and at most a
@@ -781,7 +765,7 @@ def _resolve(cands, usable, model, tolerance, anchor, trend, coarse_max):
     # Unreached cells take a local mean of the reached ones, so the reference is defined everywhere.
     filled = np.where(np.isnan(coarse), _blur_normalised(coarse, np.ones_like(coarse), 2.0), coarse)
     filled = np.where(np.isnan(filled), np.nanmean(coarse) if np.isfinite(coarse).any() else 0.0, filled)
-    reference = _upsample(filled, step, offset, (H, W))
+    reference = _upsample(filled, step, (H, W), offset)
     pick = _repick(cands, reference, np.zeros((H, W), dtype=np.int8))
     local = _blur_normalised(cands.take(pick), np.ones((H, W), np.float32), 3.0)
     local = np.where(np.isfinite(local), local, reference).astype(np.float32)

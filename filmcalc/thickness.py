@@ -457,13 +457,14 @@ def _near_colour_edge(colours, pixels, distances):
     return near
 
 
-def _upsample(coarse, step, shape):
-    """Bilinear interpolation of a grid sampled every ``step`` pixels (from pixel 0) to ``shape``."""
+def _upsample(coarse, step, shape, offset=(0, 0)):
+    """Bilinear interpolation to ``shape`` of a grid whose node (i, j) is pixel (offset[0] + i·step,
+    offset[1] + j·step); constant beyond the outer nodes."""
     H, W = shape
     h, w = coarse.shape
-    xs = np.arange(W, dtype=np.float32) / step
+    xs = (np.arange(W, dtype=np.float32) - offset[1]) / step
     rows = np.stack([np.interp(xs, np.arange(w), coarse[r]) for r in range(h)]).astype(np.float32)
-    ys = np.minimum(np.arange(H, dtype=np.float32) / step, h - 1)
+    ys = np.clip((np.arange(H, dtype=np.float32) - offset[0]) / step, 0, h - 1)
     y0 = np.floor(ys).astype(np.int64)
     y1 = np.minimum(y0 + 1, h - 1)
     fy = (ys - y0)[:, None].astype(np.float32)
