@@ -55,9 +55,17 @@ import numpy as np
 from .errors import FilmcalcError
 from .materials import AirIndex
 
-with warnings.catch_warnings():  # colour-science warns when matplotlib is absent
-    warnings.simplefilter("ignore")
-    import colour as _cs
+
+
+@functools.cache
+def _colour_science():
+    """colour-science, imported on first use (its import takes most of a second, which processes
+    that only map colours, such as sequence workers, need not pay)."""
+    with warnings.catch_warnings():  # colour-science warns when matplotlib is absent
+        warnings.simplefilter("ignore")
+        import colour
+
+    return colour
 
 __all__ = ["ColourKernel", "colour_kernel", "light_spectrum", "reflectance_to_XYZ", "XYZ_to_srgb", "srgb_to_XYZ",
            "srgb_encode", "srgb_decode", "line_colour_srgb", "srgb_to_hex", "srgb_to_hex_array", "XYZ_to_xy", "XYZ_to_uv", "XYZ_to_Lab", "Lab_to_XYZ",
@@ -90,7 +98,7 @@ def _illuminant_name(source):
     name = source.strip()
     if re.fullmatch(r"[Ff]\d{1,2}", name):  # the CIE writes F2; colour-science FL2
         name = "FL" + name[1:]
-    for key in _cs.SDS_ILLUMINANTS:
+    for key in _colour_science().SDS_ILLUMINANTS:
         if key.lower() == name.lower():
             return key
     return None
@@ -146,10 +154,10 @@ def light_spectrum(source, wavelength_nm, base_dir=None):
             raise FilmcalcError(f"Light {source!r}: write blackbody:5000 (temperature in kelvin).") from None
         if not 500 <= temperature <= 50000:
             raise FilmcalcError(f"Light {source!r}: blackbody temperature must lie in 500–50000 K.")
-        return _cs.colorimetry.planck_law(wl * 1e-9, temperature)
+        return _colour_science().colorimetry.planck_law(wl * 1e-9, temperature)
     name = _illuminant_name(source)
     if name is not None:
-        sd = _cs.SDS_ILLUMINANTS[name]
+        sd = _colour_science().SDS_ILLUMINANTS[name]
         lo, hi = sd.wavelengths[0], sd.wavelengths[-1]
         if wl.min() < lo - 1e-6 or wl.max() > hi + 1e-6:
             raise FilmcalcError(f"Light {source!r} is tabulated for {lo:g}–{hi:g} nm only.")
@@ -167,7 +175,7 @@ def light_spectrum(source, wavelength_nm, base_dir=None):
         if wl.min() < data[0, 0] or wl.max() > data[-1, 0]:
             raise FilmcalcError(f"Light file {str(path)!r} covers {data[0, 0]:g}–{data[-1, 0]:g} nm only.")
         return np.interp(wl, data[:, 0], data[:, 1])
-    known = ", ".join(k for k in _cs.SDS_ILLUMINANTS if not k.startswith(("ISO", "FL3.")))
+    known = ", ".join(k for k in _colour_science().SDS_ILLUMINANTS if not k.startswith(("ISO", "FL3.")))
     raise FilmcalcError(
         f"Unknown light {source!r}. Use an illuminant ({known}; F1–F12 also accepted), "
         f"blackbody:5000, line:632.8, a named line set ({', '.join(LINE_SOURCES)}), "
@@ -224,7 +232,7 @@ def colour_kernel(source="D65", observer="2", wavelength_nm=None, base_dir=None)
     """
     if str(observer) not in OBSERVERS:
         raise FilmcalcError(f"Observer must be '2' (CIE 1931) or '10' (CIE 1964), not {observer!r}.")
-    cmfs = _cs.MSDS_CMFS[OBSERVERS[str(observer)]]
+    cmfs = _colour_science().MSDS_CMFS[OBSERVERS[str(observer)]]
     source = LINE_SOURCES.get(source.strip().lower(), source)
     if source.lower().startswith("line:"):
         wl = _parse_lines(source)
@@ -273,7 +281,7 @@ def reflectance_to_XYZ(reflectance, kernel, exposure=1.0):
 
 def _adaptation_matrix(white_XYZ):
     """Bradford von Kries matrix from the light's white to D65, then XYZ → linear sRGB."""
-    cat = _cs.adaptation.matrix_chromatic_adaptation_VonKries(np.asarray(white_XYZ) / white_XYZ[1],
+    cat = _colour_science().adaptation.matrix_chromatic_adaptation_VonKries(np.asarray(white_XYZ) / white_XYZ[1],
                                                               _xy_to_XYZ(_D65_XY), transform="Bradford")
     return _XYZ_TO_SRGB @ cat
 
@@ -349,7 +357,7 @@ def spectral_locus(observer="2", space="xy", wavelength_nm=None):
     """
     if str(observer) not in OBSERVERS:
         raise FilmcalcError(f"Observer must be '2' or '10', not {observer!r}.")
-    cmfs = _cs.MSDS_CMFS[OBSERVERS[str(observer)]]
+    cmfs = _colour_science().MSDS_CMFS[OBSERVERS[str(observer)]]
     wl = np.arange(380.0, 701.0, 5.0) if wavelength_nm is None else np.asarray(wavelength_nm, dtype=float)
     XYZ = np.stack([np.interp(wl, cmfs.wavelengths, cmfs.values[:, i]) for i in range(3)], -1)
     return np.column_stack([wl, XYZ_to_xy(XYZ) if space == "xy" else XYZ_to_uv(XYZ)])
@@ -419,7 +427,7 @@ _OKLAB_M2 = np.array([[0.2104542553, 0.7936177850, -0.0040720468],
 
 def XYZ_to_Oklab(XYZ, white_XYZ):
     """Oklab (Ottosson 2020) after Bradford adaptation of the light's white to D65."""
-    cat = _cs.adaptation.matrix_chromatic_adaptation_VonKries(np.asarray(white_XYZ) / white_XYZ[1],
+    cat = _colour_science().adaptation.matrix_chromatic_adaptation_VonKries(np.asarray(white_XYZ) / white_XYZ[1],
                                                               _xy_to_XYZ(_D65_XY), transform="Bradford")
     xyz65 = (np.asarray(XYZ, dtype=float) / 100.0) @ cat.T
     return np.cbrt(xyz65 @ _OKLAB_M1.T) @ _OKLAB_M2.T

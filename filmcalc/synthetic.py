@@ -188,14 +188,14 @@ def measured_camera_lookup(stack, range_nm, camera_name="Nikon 5100 (NPL)", chec
     import warnings
 
     from .appearance import fringe_order
-    from .colour import _adaptation_matrix, _cs, camera_kernel, CameraResponse, colour_kernel, reflectance_to_XYZ
+    from .colour import _adaptation_matrix, _colour_science, camera_kernel, CameraResponse, colour_kernel, reflectance_to_XYZ
     from .optics import reflectance_sweep
     from .thickness import ColourLookup
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        sens = _cs.MSDS_CAMERA_SENSITIVITIES[camera_name]
-        patches = _cs.SDS_COLOURCHECKERS[checker]
+        sens = _colour_science().MSDS_CAMERA_SENSITIVITIES[camera_name]
+        patches = _colour_science().SDS_COLOURCHECKERS[checker]
     camera = CameraResponse(sens.wavelengths, sens.values, camera_name)
     wl = np.arange(380.0, 781.0, 5.0)
     cam = camera_kernel(camera, stack.light.source, wl)

@@ -155,13 +155,28 @@ class ColourLookup:
     linear_rgb: np.ndarray
     order: np.ndarray
     period_nm: float
+    # Results computed from this path, kept for the next call (the frames of a sequence share one
+    # lookup and one camera): never part of equality or the repr.
+    _memo: dict = dataclasses.field(default_factory=dict, repr=False, compare=False)
 
     def encoded(self, camera):
         """What the camera records: corrected, clipped to 0–1 and encoded."""
         return srgb_encode(np.clip(camera.apply(self.linear_rgb), 0.0, 1.0))
 
     def lab(self, camera):
-        return lab_of_encoded(self.encoded(camera))
+        """CIELAB of what the camera records along the path (L, 3); read-only, kept per camera."""
+        return self.memo(("lab", camera.matrix.tobytes()), lambda: lab_of_encoded(self.encoded(camera)))
+
+    def memo(self, key, compute):
+        """``compute()``, kept under ``key`` (a handful of entries at most)."""
+        if key not in self._memo:
+            if len(self._memo) >= 8:
+                self._memo.clear()
+            value = compute()
+            if isinstance(value, np.ndarray):
+                value.setflags(write=False)
+            self._memo[key] = value
+        return self._memo[key]
 
     def within(self, lo, hi):
         """The part of the path from ``lo`` to ``hi`` nm."""
@@ -227,6 +242,8 @@ def _candidates(lab_obs, lab_lut, tolerance, max_candidates):
 
 
 _TABLES = threading.local()
+# Up to this many pixels, sorting finds the distinct colours faster than scanning the 2²⁴ table.
+SMALL_IMAGE = 1 << 17
 
 
 def _colour_tables():
@@ -252,15 +269,19 @@ class _Colours:
         q = np.clip(np.rint(encoded.reshape(-1, 3) * np.float32(255)), 0, 255).astype(np.int32)
         codes = (q[:, 0] << 16) | (q[:, 1] << 8) | q[:, 2]
         del q
-        # A table over all 2²⁴ 8-bit colours: linear time, where sorting the pixels is not. The
-        # tables are kept between calls (one per thread) and cleared where used: allocating and
-        # zeroing 80 MB for every frame of a sequence costs more than the lookups.
-        present, table = _colour_tables()
-        present[codes] = True
-        uniq = np.flatnonzero(present).astype(np.int32)
-        present[uniq] = False
-        table[uniq] = np.arange(uniq.size, dtype=np.int32)
-        inverse = table[codes].reshape(H, W)
+        if codes.size <= SMALL_IMAGE:
+            uniq, inverse = np.unique(codes, return_inverse=True)
+            inverse = inverse.astype(np.int32).reshape(H, W)
+        else:
+            # A table over all 2²⁴ 8-bit colours: linear time, where sorting the pixels is not. The
+            # tables are kept between calls (one per thread) and cleared where used: allocating and
+            # zeroing 80 MB for every frame of a sequence costs more than the lookups.
+            present, table = _colour_tables()
+            present[codes] = True
+            uniq = np.flatnonzero(present).astype(np.int32)
+            present[uniq] = False
+            table[uniq] = np.arange(uniq.size, dtype=np.int32)
+            inverse = table[codes].reshape(H, W)
         rgb = np.stack([(uniq >> 16) & 255, (uniq >> 8) & 255, uniq & 255], axis=1) / 255.0
         return cls((H, W), inverse, rgb, lab_of_encoded(rgb))
 
@@ -1020,7 +1041,8 @@ def _washout_thickness(stack, lookup, camera, angle_deg=None, fit=None, noise=0.
 
     top = float(lookup.thickness_nm[-1]) + lookup.period_nm
     if wide is None or wide.thickness_nm[0] != 0 or wide.thickness_nm[-1] < top - 1.0:
-        wide = build_lookup(stack, (0.0, top), 0.5, angle_deg)
+        # Kept with the lookup (which belongs to this stack): every frame of a sequence needs it.
+        wide = lookup.memo(("wide", top, angle_deg), lambda: build_lookup(stack, (0.0, top), 0.5, angle_deg))
     lab = wide.lab(camera)
     t = wide.thickness_nm
     n = max(3, int(round(wide.period_nm / (t[1] - t[0]))))
