@@ -21,6 +21,8 @@ calibration_figure, map_figure
 thinning_figure, kymograph_figure
     A film over time: mean thickness with the fitted thinning law, and
     thickness along a line against time.
+history_figure
+    A summary number of saved runs over time, with control limits.
 bench_chart, thickness_angle_chart_image, save_bench_chart
     A printable chart of labelled swatches with a title block (PNG or PDF,
     A4 or Letter), drawn with matplotlib so no browser is needed.
@@ -47,7 +49,7 @@ from .errors import FilmcalcError
 
 __all__ = ["THICKNESS_UNITS", "thickness_unit", "colour_table", "colour_strip_figure", "thickness_angle_figure",
            "reflectance_map_figure", "chromaticity_figure", "spectrum_figure", "bench_chart",
-           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure", "thinning_figure", "kymograph_figure", "plus_minus"]
+           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure", "thinning_figure", "kymograph_figure", "plus_minus", "history_figure"]
 
 THICKNESS_UNITS = {"nm": 1.0, "µm": 1e-3, "Å": 10.0}
 _UNIT_ALIASES = {"nm": "nm", "um": "µm", "µm": "µm", "micron": "µm", "a": "Å", "å": "Å", "angstrom": "Å"}
@@ -567,3 +569,48 @@ def save_bench_chart(fig, path):
         fig.savefig(path)
     else:
         raise FilmcalcError(f"The chart file must end in .png or .pdf (got {path!r}).")
+
+
+def history_figure(table, title=None, label=None):
+    """A summary number over time with its control limits.
+
+    Parameters
+    ----------
+    table : filmcalc.runs.HistoryTable
+        From :func:`filmcalc.runs.history_table`.
+    title : str, optional
+    label : str, optional
+        The y-axis title, with its unit (default: the summary key).
+
+    Points outside the limits are red diamonds; hover shows the run id,
+    sample, time (UTC) and value. The mean is a solid line and mean ± kσ
+    dashed lines.
+    """
+    rows = table.rows
+    times = [r["created_utc"].replace("T", " ").rstrip("Z") for r in rows]
+    values = [r["value"] for r in rows]
+    label = label or table.key
+    fig = go.Figure()
+    fig.add_trace(go.Scatter(x=times, y=values, mode="lines", line={"color": "#b0b0b0", "width": 1},
+                             hoverinfo="skip", showlegend=False))
+    groups = (("inside the limits", False, {"color": "#1f77b4", "size": 7, "symbol": "circle"}),
+              ("outside the limits", True, {"color": "#d62728", "size": 11, "symbol": "diamond"}))
+    for name, outside, marker in groups:
+        picked = [i for i, r in enumerate(rows) if r["outside"] == outside]
+        if not picked:
+            continue
+        fig.add_trace(go.Scatter(
+            x=[times[i] for i in picked], y=[values[i] for i in picked], mode="markers", name=name, marker=marker,
+            customdata=[[rows[i]["run_id"], rows[i]["sample"] or "–"] for i in picked],
+            hovertemplate=(f"run %{{customdata[0]}}<br>sample %{{customdata[1]}}<br>%{{x|%Y-%m-%d %H:%M}} UTC<br>"
+                           f"{label} %{{y:.5g}}<extra></extra>")))
+    if table.mean is not None:
+        fig.add_hline(y=table.mean, line={"color": "#444", "width": 1},
+                      annotation_text=f"mean {table.mean:.4g}", annotation_position="top left")
+        for y, text in ((table.upper, f"+{table.k:g}σ"), (table.lower, f"−{table.k:g}σ")):
+            fig.add_hline(y=y, line={"color": "#d62728", "width": 1, "dash": "dash"},
+                          annotation_text=f"{text} {y:.4g}", annotation_position="top left")
+    fig.update_layout(title=title, height=380, margin={"l": 10, "r": 10, "t": 40 if title else 20, "b": 10},
+                      xaxis_title="saved (UTC)", yaxis_title=label, legend={"orientation": "h", "y": -0.25})
+    fig.update_xaxes(type="date")
+    return fig
