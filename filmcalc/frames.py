@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import FilmcalcError
-from .io import MAX_PIXELS, load_photo, rgb_of_samples
+from .io import MAX_PIXELS, load_photo, rgb_of_samples, tiff_page_samples
 
 __all__ = ["FrameSource", "open_frames", "parse_frame_range", "natural_key", "IMAGE_SUFFIXES", "VIDEO_SUFFIXES"]
 
@@ -143,7 +143,7 @@ class FrameSource:
             with tif:
                 for k in range(start, stop):
                     try:
-                        samples = tif.pages[self.raw_indices[k]].asarray()
+                        samples = tiff_page_samples(tif.pages[self.raw_indices[k]], self.names[k])
                         frame = self._checked(rgb_of_samples(samples, self.names[k])[0], k)
                     except FilmcalcError as exc:
                         frame = FrameError(str(exc))
@@ -237,8 +237,13 @@ def open_frames(path, frames=None, fps=None):
     path = Path(path)
     if fps is not None and not (np.isfinite(fps) and fps > 0):
         raise FilmcalcError(f"Frames per second must be a positive number, not {fps!r}.")
-    if not path.exists():
-        raise FilmcalcError(f"{str(path)!r} does not exist.")
+    try:
+        exists = path.exists()
+    except (OSError, ValueError):  # a name the system cannot look up (too long, a NUL character)
+        exists = False
+    if not exists:
+        shown = str(path) if len(str(path)) <= 80 else str(path)[:79] + "…"
+        raise FilmcalcError(f"{shown!r} does not exist.")
     if path.is_dir():
         files = sorted((p for p in path.iterdir() if p.is_file() and p.suffix.lower() in IMAGE_SUFFIXES),
                        key=lambda p: natural_key(p.name))
@@ -266,9 +271,14 @@ def _open_tiff(path, frames, fps):
     try:
         with tifffile.TiffFile(path) as tif:
             count = len(tif.pages)
-            shape = tuple(tif.pages[0].shape[:2])
+            if count:
+                shape = (int(tif.pages[0].imagelength), int(tif.pages[0].imagewidth))
     except Exception as exc:  # tifffile raises many types for damaged files
-        raise FilmcalcError(f"{path.name!r} is not a readable TIFF ({exc}).") from None
+        message = (str(exc).strip().splitlines() or [type(exc).__name__])[0][:120]
+        raise FilmcalcError(f"{path.name!r} is not a readable TIFF ({message}).") from None
+    if not count:
+        raise FilmcalcError(f"{path.name!r} is a TIFF file with no readable page (or a damaged directory); "
+                            "export it again.")
     if shape[0] * shape[1] > MAX_PIXELS:
         raise FilmcalcError(f"{path.name!r}: frames of {shape[1]} × {shape[0]} pixels are over the limit.")
     indices = _select(count, frames)

@@ -27,9 +27,13 @@ import numpy as np
 from .errors import FilmcalcError
 
 __all__ = ["Photo", "load_photo", "MAX_PIXELS", "save_map_npy", "save_map_tiff", "save_map_csv", "save_map_png",
-           "save_provenance", "file_sha256", "rgb_of_samples"]
+           "save_provenance", "file_sha256", "rgb_of_samples", "tiff_page_samples"]
 
 MAX_PIXELS = 60_000_000  # a 24-megapixel camera with room to spare; larger images are refused
+TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")  # classic TIFF and BigTIFF, read by tifffile
+# The only Pillow decoders tried (JPEG covers the MPO variant some cameras write). Naming them keeps Pillow
+# from handing a file to any other plugin, some of which run external programs (EPS: Ghostscript).
+PIL_FORMATS = ("PNG", "JPEG")
 
 
 @dataclasses.dataclass
@@ -90,26 +94,27 @@ def load_photo(source, name=None, linear=False, max_pixels=MAX_PIXELS):
     FilmcalcError
         Empty, truncated, unreadable or oversized files, with what to do.
     """
-    from PIL import Image, ImageOps
+    from PIL import Image, ImageOps, UnidentifiedImageError
 
     if isinstance(source, (bytes, bytearray)):
         data, name = bytes(source), name or "uploaded image"
     else:
         path = Path(source)
-        name = name or path.name
+        name = _short(name or path.name)
         try:
             data = path.read_bytes()
-        except OSError as exc:
-            raise FilmcalcError(f"Cannot read {name!r}: {exc.strerror or exc}.") from None
+        except (OSError, ValueError) as exc:  # ValueError: a NUL character in the path
+            raise FilmcalcError(f"Cannot read {name!r}: {getattr(exc, 'strerror', None) or exc}.") from None
+    name = _short(name)
     if not data:
         raise FilmcalcError(f"{name!r} is empty.")
     digest = file_sha256(data)
-    if data[:4] in (b"II*\x00", b"MM\x00*"):
+    if data[:4] in TIFF_MAGIC:
         return _load_tiff(data, name, linear, max_pixels, digest)
     previous = Image.MAX_IMAGE_PIXELS
     try:
         Image.MAX_IMAGE_PIXELS = max_pixels
-        with Image.open(io.BytesIO(data)) as im:
+        with Image.open(io.BytesIO(data), formats=PIL_FORMATS) as im:
             w, h = im.size
             if w * h > max_pixels:
                 raise FilmcalcError(f"{name!r} is {w} × {h} pixels, over the limit of {max_pixels:,}; "
@@ -132,9 +137,12 @@ def load_photo(source, name=None, linear=False, max_pixels=MAX_PIXELS):
         raise
     except Image.DecompressionBombError:
         raise FilmcalcError(f"{name!r} declares an image larger than {max_pixels:,} pixels; refused.") from None
-    except (OSError, ValueError, SyntaxError) as exc:
-        raise FilmcalcError(f"{name!r} is not a readable PNG, JPEG or TIFF image ({exc}). If it was cut short "
-                            "while copying, copy it again.") from None
+    except UnidentifiedImageError:
+        raise FilmcalcError(f"{name!r} is not a readable PNG, JPEG or TIFF image: its contents are in none of "
+                            "these formats. Export the photo as PNG, JPEG or TIFF.") from None
+    except Exception as exc:  # Pillow's decoders raise many types for damaged files
+        raise FilmcalcError(f"{name!r} is not a readable PNG, JPEG or TIFF image ({_why(exc)}). If it was cut "
+                            "short while copying, copy it again.") from None
     finally:
         Image.MAX_IMAGE_PIXELS = previous
     return Photo(np.ascontiguousarray(arr), depth, linear, grey, name, digest)
@@ -145,29 +153,74 @@ def _load_tiff(data, name, linear, max_pixels, digest):
 
     try:
         with tifffile.TiffFile(io.BytesIO(data)) as tif:
-            page = tif.pages[0]
-            h, w = page.shape[:2]
-            if h * w > max_pixels:
-                raise FilmcalcError(f"{name!r} is {w} × {h} pixels, over the limit of {max_pixels:,}; "
-                                    "crop or downscale it first.")
-            arr = page.asarray()
+            if not len(tif.pages):
+                raise FilmcalcError(f"{name!r} is a TIFF file with no readable image in it (no page, or a damaged "
+                                    "directory); export it again.")
+            arr = tiff_page_samples(tif.pages[0], name, max_pixels)
     except FilmcalcError:
         raise
     except Exception as exc:  # tifffile raises many types for damaged files
-        raise FilmcalcError(f"{name!r} is not a readable TIFF ({exc}).") from None
+        raise FilmcalcError(f"{name!r} is not a readable TIFF ({_why(exc)}).") from None
     scaled, depth, grey = rgb_of_samples(arr, name)
     return Photo(scaled, depth, linear, grey, name, digest)
+
+
+def _short(name, limit=80):
+    """A name for messages, cut to ``limit`` characters."""
+    name = str(name)
+    return name if len(name) <= limit else name[:limit - 1] + "…"
+
+
+def _why(exc):
+    """A library's exception as a short clause for a message: its first line, at most 120 characters."""
+    text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+    return _short(text, 120)
+
+
+def tiff_page_samples(page, name, max_pixels=MAX_PIXELS):
+    """A TIFF page's samples, (H, W) or (H, W, S), after the guard rails: pixel and sample counts checked
+    before decoding, grey or RGB colour only, samples moved last (planar files store them first)."""
+    h, w = int(page.imagelength), int(page.imagewidth)
+    if h * w > max_pixels:
+        raise FilmcalcError(f"{name!r} is {w} × {h} pixels, over the limit of {max_pixels:,}; "
+                            "crop or downscale it first.")
+    if h * w == 0:
+        raise FilmcalcError(f"{name!r} holds an image of {w} × {h} pixels: there is nothing to read.")
+    if page.size > 4 * max_pixels:
+        raise FilmcalcError(f"{name!r} declares {page.size:,} samples for {w} × {h} pixels, over the limit; "
+                            "save one greyscale or RGB image per page.")
+    photometric = page.photometric
+    if photometric not in (1, 2) and not (photometric == 6 and page.compression in (6, 7)):
+        kind = getattr(photometric, "name", str(photometric)).lower()
+        raise FilmcalcError(f"{name!r}: TIFF colour model {kind!r} is not supported (it would be read as wrong "
+                            "colours); save the image as a greyscale or RGB TIFF, or as PNG.")
+    axes = page.axes
+    if set(axes) - set("YXS"):
+        raise FilmcalcError(f"{name!r}: a TIFF page holding several images or a volume (axes {axes}) is not "
+                            "supported; save one image per page.")
+    arr = page.asarray()
+    if "S" in axes and arr.ndim == len(axes):
+        arr = np.moveaxis(arr, axes.index("S"), -1)
+        if photometric == 1:  # grey plus extra samples (alpha, ...): the grey level is the first
+            arr = arr[..., 0]
+    return arr
 
 
 def rgb_of_samples(arr, name):
     """Image samples as stored (uint8, uint16 or float; 1, 3 or 4 channels) → (RGB float32 0–1 (H, W, 3),
     bit depth, whether the image was greyscale)."""
+    if arr.ndim not in (2, 3) or 0 in arr.shape:
+        raise FilmcalcError(f"{name!r}: expected a 2-D image, found samples of shape {arr.shape}.")
     if arr.dtype == np.uint16:
         scaled, depth = arr.astype(np.float32) / 65535.0, 16
     elif arr.dtype == np.uint8:
         scaled, depth = arr.astype(np.float32) / 255.0, 8
     elif arr.dtype.kind == "f":
-        scaled, depth = np.clip(arr.astype(np.float32), 0, None), 16
+        with np.errstate(over="ignore", invalid="ignore"):
+            scaled, depth = np.clip(arr.astype(np.float32), 0, None), 16
+        if not np.all(np.isfinite(scaled)):
+            raise FilmcalcError(f"{name!r}: the image holds NaN, infinite or huge (beyond 32-bit float) samples; "
+                                "replace them (for example with 0) and save it again.")
     else:
         raise FilmcalcError(f"{name!r}: TIFF sample type {arr.dtype} is not supported (use 8 or 16 bit).")
     grey = scaled.ndim == 2 or scaled.shape[2] == 1

@@ -55,6 +55,32 @@ __all__ = [
 ]
 
 
+def brief_repr(value, limit=48):
+    """``repr(value)`` cut to ``limit`` characters, for quoting a user's value in a message."""
+    text = repr(value)
+    return text if len(text) <= limit else text[:limit - 1] + "…"
+
+
+def table_path(name, base_dir, what):
+    """Where a table file named in a stack file lies: relative to the stack file's folder, never outside it.
+
+    Raises
+    ------
+    FilmcalcError
+        An absolute path, a path through ``..``, or a stack that was not read from a file (no folder).
+    """
+    path = Path(name)
+    if path.is_absolute() or ".." in path.parts:
+        raise FilmcalcError(f"{what} {brief_repr(name)}: a file named in a stack file must lie in the stack "
+                            "file's folder or below it. Copy the table there and give its name relative to "
+                            "the stack file (no absolute path, no '..').")
+    if base_dir is None:
+        raise FilmcalcError(f"{what} {brief_repr(name)} is a file, but this stack was not read from a file "
+                            "(typed or uploaded), so there is no folder to find it in. Open the stack file "
+                            "saved next to the table instead, or write the material inline, e.g. {n = 1.47, k = 0}.")
+    return Path(base_dir) / path
+
+
 class Material:
     """A medium with a complex refractive index N(λ) = n + i·k.
 
@@ -174,6 +200,9 @@ class CauchyIndex(Material):
     def __init__(self, a, b=0.0, c=0.0, k=0.0, name=None, source="Cauchy coefficients given by the user",
                  valid_nm=None, spec=None):
         self.a, self.b, self.c, self.k = (float(v) for v in (a, b, c, k))
+        if not np.all(np.isfinite([self.a, self.b, self.c, self.k])):
+            raise FilmcalcError(f"Cauchy coefficients and k must be finite numbers (got {self.a:g}, {self.b:g}, "
+                                f"{self.c:g}, k = {self.k:g}).")
         if self.k < 0:
             raise FilmcalcError(f"Extinction coefficient k must be ≥ 0 (got {self.k}).")
         super().__init__(name or f"Cauchy({self.a:g}, {self.b:g}, {self.c:g})", source, valid_nm,
@@ -204,6 +233,8 @@ class SellmeierIndex(Material):
         self.a = float(a)
         if self.b.shape != self.c.shape or self.b.ndim != 1:
             raise FilmcalcError("Sellmeier: give as many B as C coefficients.")
+        if not (np.all(np.isfinite(self.b)) and np.all(np.isfinite(self.c)) and np.isfinite(self.a)):
+            raise FilmcalcError("Sellmeier: the coefficients must be finite numbers (not nan or inf).")
         super().__init__(name or "Sellmeier", source, valid_nm,
                          spec if spec is not None else {"sellmeier_b": self.b.tolist(),
                                                          "sellmeier_c": self.c.tolist()})
@@ -225,6 +256,8 @@ class TabulatedIndex(Material):
         k = np.zeros_like(n) if k is None else np.asarray(k, dtype=float)
         if wl.ndim != 1 or wl.size < 2 or n.shape != wl.shape or k.shape != wl.shape:
             raise FilmcalcError(f"{name}: a table needs at least two rows of wavelength_nm, n, k.")
+        if not np.all(np.isfinite(wl)) or np.any(wl <= 0):
+            raise FilmcalcError(f"{name}: every wavelength in the table must be a finite number > 0 nm.")
         if np.any(np.diff(wl) <= 0):
             raise FilmcalcError(f"{name}: wavelengths in the table must strictly increase.")
         if np.any(n <= 0) or np.any(k < 0) or not np.all(np.isfinite(n + k)):
@@ -425,7 +458,7 @@ def built_in_material(name, **params):
         close = difflib.get_close_matches(key, list(_LIBRARY), n=3)
         hint = f" Did you mean {', '.join(repr(c) for c in close)}?" if close else ""
         raise FilmcalcError(
-            f"Unknown material {name!r}.{hint} Built-in materials: {', '.join(_LIBRARY)}. "
+            f"Unknown material {brief_repr(name)}.{hint} Built-in materials: {', '.join(_LIBRARY)}. "
             "You can also give a CSV file (wavelength_nm,n,k) or an inline table such as {n = 1.47, k = 0}."
         )
     try:
@@ -454,20 +487,35 @@ def load_material_csv(path, name=None):
     """
     path = Path(path)
     name = name or path.stem
+    shown = brief_repr(str(path), 80)
     try:
-        text = path.read_text(encoding="utf-8-sig")
-    except OSError as exc:
-        raise FilmcalcError(f"Cannot read material file {str(path)!r}: {exc.strerror or exc}.") from None
+        data = path.read_bytes()
+    except (OSError, ValueError) as exc:  # ValueError: a NUL character in the path
+        raise FilmcalcError(f"Cannot read material file {shown}: {getattr(exc, 'strerror', None) or exc}.") from None
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        text = data.decode("utf-16", errors="replace")
+    elif b"\x00" in data:
+        raise FilmcalcError(f"Material file {shown} is not a text table (it holds binary data).")
+    else:
+        try:
+            text = data.decode("utf-8-sig")
+        except UnicodeDecodeError as exc:
+            raise FilmcalcError(f"Material file {shown} is not UTF-8 text (byte {exc.start + 1} is not UTF-8): "
+                                "save it again as UTF-8 CSV.") from None
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     if not lines:
-        raise FilmcalcError(f"Material file {str(path)!r} is empty.")
-    dialect = csv.Sniffer().sniff(lines[0], delimiters=",;\t") if any(d in lines[0] for d in ",;\t") else None
-    rows = list(csv.reader(lines, dialect) if dialect else ([ln] for ln in lines))
+        raise FilmcalcError(f"Material file {shown} is empty.")
+    try:
+        dialect = csv.Sniffer().sniff(lines[0], delimiters=",;\t") if any(d in lines[0] for d in ",;\t") else None
+        rows = list(csv.reader(lines, dialect) if dialect else ([ln] for ln in lines))
+    except csv.Error as exc:
+        raise FilmcalcError(f"Material file {shown} cannot be split into columns ({exc}): write it as "
+                            "wavelength_nm,n,k with one row per line.") from None
     header = [h.strip().lower() for h in rows[0]]
     if "wavelength_nm" not in header or "n" not in header:
         raise FilmcalcError(
-            f"Material file {str(path)!r}: the first line must name the columns wavelength_nm,n[,k] "
-            f"(found {rows[0]!r})."
+            f"Material file {shown}: the first line must name the columns wavelength_nm,n[,k] "
+            f"(found {brief_repr(rows[0])})."
         )
     iw, i_n = header.index("wavelength_nm"), header.index("n")
     ik = header.index("k") if "k" in header else None
@@ -479,8 +527,8 @@ def load_material_csv(path, name=None):
             k.append(float(row[ik]) if ik is not None else 0.0)
         except (ValueError, IndexError):
             raise FilmcalcError(
-                f"Material file {str(path)!r}, data row {lineno}: expected numbers for "
-                f"{', '.join(rows[0])}, got {row!r}."
+                f"Material file {shown}, data row {lineno}: expected numbers for "
+                f"wavelength_nm, n{', k' if ik is not None else ''}, got {brief_repr(row)}."
             ) from None
     return TabulatedIndex(wl, n, k, name=name, source=f"user table {path.name}", spec=str(path))
 
@@ -518,7 +566,8 @@ def material_from_spec(spec, base_dir=None):
         ``{sellmeier_b = [...], sellmeier_c = [...]}`` (C in µm²), or a
         built-in with parameters ``{name = "water", temperature_c = 25}``.
     base_dir : path-like, optional
-        Folder that relative CSV paths are resolved against (the stack file's).
+        Folder that relative CSV paths are resolved against (the stack file's); a CSV path must
+        lie in it or below it, and without it a CSV path is refused.
 
     Returns
     -------
@@ -528,10 +577,7 @@ def material_from_spec(spec, base_dir=None):
         return spec
     if isinstance(spec, str):
         if spec.lower().endswith((".csv", ".tsv", ".txt")):
-            path = Path(spec)
-            if not path.is_absolute() and base_dir is not None:
-                path = Path(base_dir) / path
-            mat = load_material_csv(path)
+            mat = load_material_csv(table_path(spec, base_dir, "Material"))
             mat.spec = spec
             return mat
         return built_in_material(spec)
@@ -553,12 +599,13 @@ def material_from_spec(spec, base_dir=None):
                 return CauchyIndex(*coeffs, k=spec.get("k", 0.0), spec=dict(spec))
             if keys == {"sellmeier_b", "sellmeier_c"}:
                 return SellmeierIndex(spec["sellmeier_b"], spec["sellmeier_c"], spec=dict(spec))
-        except (TypeError, ValueError) as exc:
+        except (TypeError, ValueError, OverflowError) as exc:  # OverflowError: an integer too large for a float
             if isinstance(exc, FilmcalcError):
                 raise
-            raise FilmcalcError(f"Material {spec!r}: the values must be numbers ({exc}).") from None
+            raise FilmcalcError(f"Material {brief_repr(spec)}: the values must be numbers "
+                                f"({str(exc)[:80]}).") from None
         raise FilmcalcError(
-            f"Material table {spec!r} is not understood. Use {{n = 1.47, k = 0}}, "
+            f"Material table {brief_repr(spec)} is not understood. Use {{n = 1.47, k = 0}}, "
             "{cauchy = [A, B, C]}, {sellmeier_b = [...], sellmeier_c = [...]} or "
             "{name = \"water\", temperature_c = 25}."
         )

@@ -50,7 +50,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import FilmcalcError
-from .materials import CauchyIndex, built_in_material
+from .materials import CauchyIndex, brief_repr, built_in_material
 from .optics import reflectance_sweep, stack_indices, stack_reflectance, thickness_sweep
 
 __all__ = ["Spectrum", "read_spectrum", "reflectance_from_counts", "bare_reflectance", "fit_spectrum", "SpectrumFit", "SpectrumMap",
@@ -81,15 +81,30 @@ class Spectrum:
     notes: list = dataclasses.field(default_factory=list)
 
 
+def _is_file(path):
+    """``path.is_file()``, False for a name the system cannot even look up (too long, a NUL character)."""
+    try:
+        return path.is_file()
+    except (OSError, ValueError):
+        return False
+
+
 def _text(source, name, what):
     """A text table's contents and a name for messages, from a path or bytes (binary data refused)."""
     if isinstance(source, (bytes, bytearray)):
-        text, name = bytes(source).decode("utf-8", errors="replace"), name or what
+        data, name = bytes(source), name or what
     else:
         path = Path(source)
-        if not path.is_file():
-            raise FilmcalcError(f"{what.capitalize()} file {path} does not exist.")
-        text, name = path.read_text(encoding="utf-8", errors="replace"), name or path.name
+        if not _is_file(path):
+            raise FilmcalcError(f"{what.capitalize()} file {brief_repr(str(path), 80)} does not exist.")
+        try:
+            data, name = path.read_bytes(), name or path.name
+        except OSError as exc:
+            raise FilmcalcError(f"Cannot read {brief_repr(path.name)}: {exc.strerror or exc}.") from None
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):  # UTF-16 with a byte-order mark
+        text = data.decode("utf-16", errors="replace")
+    else:
+        text = data.decode("utf-8-sig", errors="replace")
     if "\x00" in text:
         raise FilmcalcError(f"{name} is not a text table (it holds binary data).")
     return text, name
@@ -109,7 +124,10 @@ def _rows(text, name):
     split = (lambda ln: ln.split()) if delimiter in (None, " ") else (lambda ln: next(csv.reader([ln], delimiter=delimiter)))
     header, rows = None, []
     for number, line in enumerate(lines, 1):
-        cells = [c.strip() for c in split(line) if c.strip() != ""]
+        try:
+            cells = [c.strip() for c in split(line) if c.strip() != ""]
+        except csv.Error as exc:
+            raise FilmcalcError(f"{name}, data line {number}: cannot be split into columns ({exc}).") from None
         try:
             rows.append([float(c) if c.lower() not in ("nan", "") else np.nan for c in cells])
         except ValueError:
@@ -123,6 +141,14 @@ def _rows(text, name):
         bad = next(i for i, r in enumerate(rows, 1) if len(r) != width)
         raise FilmcalcError(f"{name}: row {bad} has a different number of columns from the first row.")
     return np.array(rows, dtype=float), header
+
+
+def _check_width(header, data, name, *columns):
+    """The rows must hold a number in every column the header names and the reader uses."""
+    used = [i for i in columns if i is not None]
+    if used and max(used) >= data.shape[1]:
+        raise FilmcalcError(f"{name}: the header names {len(header)} columns but the rows hold {data.shape[1]} "
+                            "numbers; give every row a value for each column, or remove the extra names.")
 
 
 def _column(header, *keys):
@@ -233,6 +259,7 @@ def read_spectrum(source, name=None, scale="auto", reference_material="silicon")
     counts = i_sample is not None and i_ref is not None  # counts need a header that names them
     if data.shape[1] < 2:
         raise FilmcalcError(f"{name} needs at least two columns: wavelength (nm) and reflectance.")
+    _check_width(header, data, name, i_wl, *((i_sample, i_ref, i_dark) if counts else (i_r,)))
     if counts:
         columns = [data[:, i_sample], data[:, i_ref]] + ([data[:, i_dark]] if i_dark is not None else [])
         wl, columns = _clean(data[:, i_wl], columns, name, notes)
@@ -733,12 +760,16 @@ def read_spectrum_map(source, positions=None, scale="auto", name=None):
     wavelength grids are interpolated onto the first one's (noted).
     """
     notes = []
-    if positions is not None or (not isinstance(source, (bytes, bytearray)) and Path(source).is_dir()):
+    if positions is not None or (not isinstance(source, (bytes, bytearray)) and _is_dir(Path(source))):
         folder = Path(source)
         pos_path = Path(positions) if positions is not None else folder / "positions.csv"
-        if not pos_path.is_file():
-            raise FilmcalcError(f"A folder of spectra needs a positions file (file, x, y); {pos_path} is missing.")
-        rows = list(csv.reader(io.StringIO(pos_path.read_text(encoding="utf-8"))))
+        if not _is_file(pos_path):
+            raise FilmcalcError(f"A folder of spectra needs a positions file (file, x, y); "
+                                f"{brief_repr(str(pos_path), 80)} is missing.")
+        try:
+            rows = list(csv.reader(io.StringIO(_text(pos_path, None, "positions")[0])))
+        except csv.Error as exc:
+            raise FilmcalcError(f"{pos_path.name} cannot be split into columns file, x, y ({exc}).") from None
         rows = [r for r in rows if r and not r[0].lstrip().startswith("#")]
         if rows and not _is_number(rows[0][1] if len(rows[0]) > 1 else ""):
             rows = rows[1:]
@@ -751,9 +782,12 @@ def read_spectrum_map(source, positions=None, scale="auto", name=None):
             file = Path(r[0].strip())
             if file.is_absolute() or ".." in file.parts:
                 raise FilmcalcError(f"{pos_path}: {r[0]!r} must be a file name inside the folder.")
+            try:
+                xs.append(float(r[1]))
+                ys.append(float(r[2]))
+            except ValueError:
+                raise FilmcalcError(f"{pos_path.name}: x and y must be numbers (got {brief_repr(r)}).") from None
             spectra.append(read_spectrum(folder / file, scale=scale))
-            xs.append(float(r[1]))
-            ys.append(float(r[2]))
         wl = spectra[0].wavelength_nm
         refl = []
         for s in spectra:
@@ -769,6 +803,7 @@ def read_spectrum_map(source, positions=None, scale="auto", name=None):
             _column(header, "refl", "r_", "r(")]
     if header is None or None in cols or len(set(cols)) < 4:
         raise FilmcalcError(f"{name} needs a header naming the columns x, y, wavelength (nm) and reflectance.")
+    _check_width(header, data, name, *cols)
     x, y, wl, r = (data[:, c] for c in cols)
     finite = np.isfinite(x) & np.isfinite(y) & np.isfinite(wl) & np.isfinite(r)
     if not finite.all():
@@ -787,6 +822,14 @@ def read_spectrum_map(source, positions=None, scale="auto", name=None):
         raise FilmcalcError(f"{name}: {bad} points do not have a reflectance at every wavelength of the run.")
     refl = _as_fraction(refl, scale, name, notes)
     return SpectrumMap(grid, refl, points[:, 0], points[:, 1], name, notes)
+
+
+def _is_dir(path):
+    """``path.is_dir()``, False for a name the system cannot even look up."""
+    try:
+        return path.is_dir()
+    except (OSError, ValueError):
+        return False
 
 
 def _is_number(text):

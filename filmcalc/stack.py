@@ -35,13 +35,14 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
+import math
 import tomllib
 from pathlib import Path
 
 import tomli_w
 
 from .errors import FilmcalcError
-from .materials import Material, material_from_spec
+from .materials import Material, brief_repr, material_from_spec, table_path
 
 __all__ = ["Layer", "Light", "Stack", "load_stack", "loads_stack", "save_stack", "dumps_stack", "stack_from_dict",
            "stack_to_dict",
@@ -153,14 +154,24 @@ def _unknown_keys(table, allowed, where):
         key = sorted(extra)[0]
         close = difflib.get_close_matches(key, list(allowed), n=1)
         hint = f" Did you mean {close[0]!r}?" if close else ""
-        raise FilmcalcError(f"Unknown key {key!r} in {where}.{hint} Allowed keys: {', '.join(sorted(allowed))}.")
+        raise FilmcalcError(f"Unknown key {brief_repr(key)} in {where}.{hint} "
+                            f"Allowed keys: {', '.join(sorted(allowed))}.")
+
+
+def _float(value):
+    """float(value), with integers too large for a float (TOML allows any length) made ±inf."""
+    try:
+        return float(value)
+    except OverflowError:
+        return math.inf if value > 0 else -math.inf
 
 
 def _number(value, where, minimum=None, below=None):
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise FilmcalcError(f"{where} must be a number (got {value!r}).")
-    value = float(value)
-    if value != value or (minimum is not None and value < minimum) or (below is not None and value >= below):
+        raise FilmcalcError(f"{where} must be a number (got {brief_repr(value)}).")
+    value = _float(value)
+    if not math.isfinite(value) or (minimum is not None and value < minimum) or (below is not None
+                                                                                   and value >= below):
         rng = (f" ≥ {minimum:g}" if minimum is not None else "") + (f" and < {below:g}" if below is not None else "")
         raise FilmcalcError(f"{where} must be a number{rng} (got {value!r}).")
     return value
@@ -181,7 +192,7 @@ def _validate_light(light):
     _number(light.angle_deg, "light.angle_deg", 0, 90)
     if light.polarisation not in POLARISATIONS:
         raise FilmcalcError(f"light.polarisation must be one of {', '.join(POLARISATIONS)} "
-                            f"(got {light.polarisation!r}).")
+                            f"(got {brief_repr(light.polarisation)}).")
     _number(light.numerical_aperture, "light.numerical_aperture", 0, 1.7)
     return light
 
@@ -193,7 +204,7 @@ def stack_from_dict(data, base_dir=None):
     _unknown_keys(data, _TOP_KEYS, "the stack file")
     name = data.get("name", "unnamed stack")
     if not isinstance(name, str):
-        raise FilmcalcError(f"name must be text (got {name!r}).")
+        raise FilmcalcError(f"name must be text (got {brief_repr(name)}).")
     for key in ("ambient", "substrate"):
         if not isinstance(data.get(key), dict):
             raise FilmcalcError(f"[{key}] is missing: add a [{key}] table with material = \"…\".")
@@ -215,7 +226,7 @@ def stack_from_dict(data, base_dir=None):
         for flag, default in (("coherent", True), ("unknown", False)):
             value = raw.get(flag, default)
             if not isinstance(value, bool):
-                raise FilmcalcError(f"{where}: {flag} must be true or false (got {value!r}).")
+                raise FilmcalcError(f"{where}: {flag} must be true or false (got {brief_repr(value)}).")
             flags[flag] = value
         layers.append(Layer(_material(raw.get("material"), f"{where} material", base_dir),
                             _number(raw["thickness_nm"], f"{where} thickness_nm", 0), **flags))
@@ -228,9 +239,12 @@ def stack_from_dict(data, base_dir=None):
     if not isinstance(raw_light, dict):
         raise FilmcalcError("[light] must be a table.")
     _unknown_keys(raw_light, _LIGHT_KEYS, "[light]")
-    light = Light(**{k: (float(v) if k in ("angle_deg", "numerical_aperture") and isinstance(v, int)
+    light = Light(**{k: (_float(v) if k in ("angle_deg", "numerical_aperture") and isinstance(v, int)
                          and not isinstance(v, bool) else v) for k, v in raw_light.items()})
-    return Stack(name, ambient, layers, substrate, _validate_light(light),
+    _validate_light(light)
+    if light.source.lower().endswith(".csv"):  # read later by the colour module, from the same place
+        table_path(light.source, base_dir, "light.source")
+    return Stack(name, ambient, layers, substrate, light,
                  None if base_dir is None else Path(base_dir))
 
 
@@ -242,10 +256,14 @@ def loads_stack(text, base_dir=None):
     FilmcalcError
         Bad TOML (with its line and column) or a bad key or value (named).
     """
+    text = text.removeprefix("\ufeff")  # a byte-order mark some editors write
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise FilmcalcError(f"The stack file is not valid TOML: {exc}.") from None
+    except RecursionError:
+        raise FilmcalcError("The stack file is not valid TOML for filmcalc: it nests arrays or tables too deeply. "
+                            "Write each layer as its own [[layers]] table.") from None
     return stack_from_dict(data, base_dir)
 
 
@@ -253,9 +271,15 @@ def load_stack(path):
     """Read a stack file; relative material CSV paths resolve against its folder."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise FilmcalcError(f"Cannot read stack file {str(path)!r}: {exc.strerror or exc}.") from None
+        data = path.read_bytes()
+    except (OSError, ValueError) as exc:  # ValueError: a NUL character in the path
+        raise FilmcalcError(f"Cannot read stack file {brief_repr(str(path), 80)}: "
+                            f"{getattr(exc, 'strerror', None) or exc}.") from None
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise FilmcalcError(f"{brief_repr(path.name)} is not UTF-8 text (byte {exc.start + 1} is not UTF-8), as a "
+                            "stack file must be: save it again as UTF-8.") from None
     try:
         stack = loads_stack(text, base_dir=path.parent)
     except FilmcalcError as exc:
