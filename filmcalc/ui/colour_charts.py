@@ -1,47 +1,58 @@
 """Colour charts page: what the film looks like over thickness and angle, and back."""
 
-import csv
-import io
-import tempfile
-from pathlib import Path
-
 import numpy as np
 import streamlit as st
 
-from filmcalc.appearance import film_colours, match_colour
-from filmcalc.charts import (bench_chart, chromaticity_figure, colour_strip_figure, colour_table,
-                             reflectance_map_figure, save_bench_chart, spectrum_figure, thickness_angle_figure,
-                             thickness_unit)
+from filmcalc.appearance import match_colour
+from filmcalc.charts import (chromaticity_figure, colour_strip_figure, reflectance_map_figure, spectrum_figure,
+                             thickness_angle_figure, thickness_unit)
 from filmcalc.colour import parse_colour
 from filmcalc.errors import FilmcalcError
 from filmcalc.optics import stack_reflectance
 from filmcalc.stack import POLARISATIONS
-from filmcalc.ui.common import cached_colours, cached_reflectance_map, cautions_box, load_or_stop, stack_picker
+from filmcalc.ui.common import (PageLink, cached_bench_chart, cached_colours, cached_reflectance_map, cautions_box,
+                                load_or_stop, stack_picker)
 
 st.title("Colour charts")
 st.write("The film's colour under the stack's light for every thickness and angle, a chart to print for the "
          "bench, and the thicknesses a colour could mean.")
 
-text, base_dir, origin = stack_picker()
+link = PageLink("colour-charts")
+text, base_dir, origin = stack_picker(link)
 stack = load_or_stop(text, base_dir, origin)
 
 with st.sidebar:
     st.header("Chart")
-    t_max = st.number_input("Largest thickness (nm)", 50.0, 20000.0, 2000.0, 50.0, key="chart_tmax")
-    t_points = st.select_slider("Thickness points", [201, 501, 1001, 2001, 4001], value=2001, key="chart_tpoints")
-    a_max = st.slider("Largest angle (°)", 0.0, 80.0, 60.0, 5.0, format="%.0f°", key="chart_amax")
-    unit = st.radio("Thickness unit", ["nm", "µm", "Å"], horizontal=True, key="chart_unit")
+    link.attach("t_max_nm", "chart_tmax")
+    t_max = st.number_input("Largest thickness (nm)", 50.0, 20000.0, 2000.0, 50.0, key="chart_tmax",
+                            persist_state="session")
+    link.attach("t_points", "chart_tpoints")
+    t_points = st.select_slider("Thickness points", [201, 501, 1001, 2001, 4001], value=2001, key="chart_tpoints",
+                                persist_state="session")
+    link.attach("angle_max_deg", "chart_amax")
+    a_max = st.slider("Largest angle (°)", 0.0, 80.0, 60.0, 5.0, format="%.0f°", key="chart_amax",
+                      persist_state="session")
+    link.attach("unit", "chart_unit")
+    unit = st.radio("Thickness unit", ["nm", "µm", "Å"], horizontal=True, key="chart_unit", persist_state="session")
+    link.attach("polarisation", "chart_pol")
     polarisation = st.radio("Polarisation", POLARISATIONS, horizontal=True,
-                            index=POLARISATIONS.index(stack.light.polarisation), key="chart_pol")
-    auto = st.toggle("Automatic exposure", True, key="chart_auto",
+                            index=POLARISATIONS.index(stack.light.polarisation), key="chart_pol",
+                            persist_state="session")
+    link.attach("auto_exposure", "chart_auto")
+    auto = st.toggle("Automatic exposure", True, key="chart_auto", persist_state="session",
                      help="Scale the light so the brightest colour on the chart is near white, as a camera "
                           "exposed for the film would. Off: set it yourself (1× = beside a perfect white).")
+    link.attach("exposure", "chart_exposure")
     exposure = None if auto else st.slider("Exposure (×)", 0.5, 30.0, 1.0, 0.5, format="%.1f×",
-                                           key="chart_exposure")
-    observer = st.radio("Observer", ["2", "10"], horizontal=True, key="chart_observer",
+                                           key="chart_exposure", persist_state="session")
+    link.attach("observer", "chart_observer")
+    observer = st.radio("Observer", ["2", "10"], horizontal=True, key="chart_observer", persist_state="session",
                         format_func=lambda o: "CIE 1931 2°" if o == "2" else "CIE 1964 10°")
+    link.attach("na", "chart_na")
     na = st.slider("Numerical aperture", 0.0, 0.9, float(stack.light.numerical_aperture), 0.05,
-                   key="chart_na", help="Averages each angle over a microscope objective's cone.")
+                   key="chart_na", persist_state="session",
+                   help="Averages each angle over a microscope objective's cone.")
+link.publish()
 
 thickness_range = (0.0, float(t_max), int(t_points))
 angle_count = int(a_max) + 1 if a_max > 0 else 1
@@ -61,8 +72,9 @@ if auto:
 if colours.monochromatic:
     st.info("Line light: the charts show the intensity fringes in the colour of the line.")
 
+link.attach("angle_deg", "chart_angle", fits=lambda v: v <= a_max, misfit="above the largest angle")
 view_angle = st.slider("Angle for the strip, path and matching (°)", 0.0, float(a_max), float(min(stack.light.angle_deg,
-                     a_max)), 1.0, format="%.0f°", key="chart_angle") if a_max > 0 else 0.0
+                     a_max)), 1.0, format="%.0f°", key="chart_angle", persist_state="session") if a_max > 0 else 0.0
 row = int(round(view_angle))  # angles are every 1°
 one = colours.at_angle(row)
 
@@ -82,13 +94,15 @@ with tabs[2]:
     st.plotly_chart(reflectance_map_figure(refl, np.linspace(0.0, t_max, min(int(t_points), 1001)), stack,
                                            polarisation, unit), width="stretch")
 with tabs[3]:
-    space = st.radio("Diagram", ["xy", "uv"], horizontal=True, key="chart_space",
+    link.attach("diagram", "chart_space")
+    space = st.radio("Diagram", ["xy", "uv"], horizontal=True, key="chart_space", persist_state="session",
                      format_func=lambda s: "CIE 1931 xy" if s == "xy" else "CIE 1976 u′v′")
     st.plotly_chart(chromaticity_figure(one, space, label_every_nm=100.0 if t_max <= 3000 else 500.0, unit=unit),
                     width="stretch")
 with tabs[4]:
+    link.attach("spectrum_nm", "chart_spec_d")
     d_spec = st.number_input("Film thickness (nm)", 0.0, 20000.0, float(min(stack.film.thickness_nm, t_max)),
-                             1.0, key="chart_spec_d")
+                             1.0, key="chart_spec_d", persist_state="session")
     spec = stack_reflectance(stack, np.arange(380.0, 781.0, 1.0), d_spec, view_angle, na)
     st.plotly_chart(spectrum_figure(spec, polarisation, f"{d_spec:g} nm at {view_angle:g}°"), width="stretch")
 with tabs[5]:
@@ -96,12 +110,17 @@ with tabs[5]:
              "with its fringe order at 550 nm. Colours repeat at higher orders: use what else you know "
              "(neighbouring colours, a bare-substrate reference, the expected range) to choose.")
     c1, c2, c3, c4 = st.columns(4)
-    picked = c1.color_picker("Colour", "#5b6aa5", key="match_picker")
-    typed = c2.text_input("…or type it", "", placeholder="#RRGGBB, srgb:R,G,B or lab:L,a,b", key="match_text")
+    link.attach("colour", "match_picker")
+    picked = c1.color_picker("Colour", "#5b6aa5", key="match_picker", persist_state="session")
+    link.attach("colour_text", "match_text")
+    typed = c2.text_input("…or type it", "", placeholder="#RRGGBB, srgb:R,G,B or lab:L,a,b", key="match_text",
+                          persist_state="session")
+    link.attach("swatch_nm", "match_swatch", fits=lambda v: v <= t_max, misfit="above the largest thickness")
     swatch = c3.number_input("…or take the chart's swatch at (nm)", 0.0, float(t_max), value=None,
-                             placeholder="thickness", key="match_swatch",
+                             placeholder="thickness", key="match_swatch", persist_state="session",
                              help="Which other thicknesses look like the chart's colour at this thickness?")
-    tolerance = c4.slider("Tolerance ΔE00", 0.5, 15.0, 5.0, 0.5, key="match_tol")
+    link.attach("tolerance_de00", "match_tol")
+    tolerance = c4.slider("Tolerance ΔE00", 0.5, 15.0, 5.0, 0.5, key="match_tol", persist_state="session")
     try:
         if swatch is not None and not typed:
             index = int(np.argmin(np.abs(one.thickness_nm - swatch)))
@@ -127,30 +146,24 @@ with tabs[6]:
     st.write("Swatches for this stack, light and angle, with a title block, ready to print. Printed colours "
              "depend on the printer and on the light the chart is viewed under.")
     c1, c2, c3 = st.columns(3)
-    step = c1.number_input("Step (nm)", 1.0, 500.0, 10.0, 1.0, key="print_step")
-    top = c2.number_input("Up to (nm)", step, 20000.0, min(600.0, float(t_max)), step, key="print_top")
-    paper = c3.radio("Paper", ["A4", "Letter"], horizontal=True, key="print_paper")
-    thickness = np.arange(0.0, top + step / 2, step)
-    if thickness.size > 240:
-        st.error(f"{thickness.size} swatches do not fit on a page: raise the step or lower the largest thickness.")
+    link.attach("print_step_nm", "print_step")
+    step = c1.number_input("Step (nm)", 1.0, 500.0, 10.0, 1.0, key="print_step", persist_state="session")
+    link.attach("print_to_nm", "print_top", fits=lambda v: v >= step, misfit="below the step")
+    top = c2.number_input("Up to (nm)", step, 20000.0, min(600.0, float(t_max)), step, key="print_top",
+                          persist_state="session")
+    link.attach("paper", "print_paper")
+    paper = c3.radio("Paper", ["A4", "Letter"], horizontal=True, key="print_paper", persist_state="session")
+    thickness_count = np.arange(0.0, top + step / 2, step).size
+    if thickness_count > 240:
+        st.error(f"{thickness_count} swatches do not fit on a page: raise the step or lower the largest thickness.")
     else:
-        swatches = film_colours(stack, thickness, [view_angle], observer=observer, exposure=colours.exposure,
-                                polarisation=polarisation, numerical_aperture=na)
-        fig = bench_chart(swatches, stack, unit, paper)
-        files = {}
-        with tempfile.TemporaryDirectory() as tmp:
-            for ext in ("png", "pdf"):
-                path = Path(tmp) / f"chart.{ext}"
-                save_bench_chart(fig, path)
-                files[ext] = path.read_bytes()
+        with st.spinner("Drawing the chart…"):
+            files = cached_bench_chart(text, base_dir, float(step), float(top), float(view_angle), observer,
+                                       float(colours.exposure), polarisation, float(na), unit, paper)
         st.image(files["png"], width=520)
-        rows = colour_table(swatches)
-        buffer = io.StringIO()
-        writer = csv.DictWriter(buffer, fieldnames=list(rows[0]))
-        writer.writeheader()
-        writer.writerows(rows)
         d1, d2, d3 = st.columns(3)
         d1.download_button("Download PDF", files["pdf"], "filmcalc-chart.pdf", "application/pdf")
         d2.download_button("Download PNG", files["png"], "filmcalc-chart.png", "image/png")
-        d3.download_button("Download CSV", buffer.getvalue(), "filmcalc-chart.csv", "text/csv")
+        d3.download_button("Download CSV", files["csv"], "filmcalc-chart.csv", "text/csv")
+link.publish()
 cautions_box()

@@ -1,4 +1,4 @@
-"""Helpers shared by the dashboard pages: demo files, cached computations, cautions."""
+"""Helpers shared by the dashboard pages: demo files, shareable links, cached computations, cautions."""
 
 from __future__ import annotations
 
@@ -7,6 +7,7 @@ from pathlib import Path
 import numpy as np
 import streamlit as st
 
+from filmcalc import links
 from filmcalc.appearance import film_colours
 from filmcalc.errors import FilmcalcError
 from filmcalc.optics import reflectance_sweep, stack_reflectance
@@ -41,11 +42,23 @@ def _remember(key):
     st.session_state[key + "_saved"] = st.session_state[key]
 
 
-def stack_picker():
+def demo_sample_choices():
+    """URL word (the demo stack file's stem) → the sample's display name, for links."""
+    return {path.stem: name for name, path in demo_stacks().items()}
+
+
+def stack_picker(link=None):
     """Sidebar control shared by the pages: which stack to work on.
 
     The choice, an uploaded file's text and the builder's stack live in
-    session state, so they survive moving between pages.
+    session state, so they survive moving between pages. A new link's
+    ``sample`` selects that demo sample; the choice goes back into the link
+    when it is a demo sample (your own stack cannot travel in a link).
+
+    Parameters
+    ----------
+    link : PageLink, optional
+        The page's link, to read and write ``sample``.
 
     Returns
     -------
@@ -60,6 +73,8 @@ def stack_picker():
         options.append(UPLOAD_CHOICE_PREFIX + uploaded[0])
     if st.session_state.get("builder_text"):
         options.append(BUILDER_CHOICE)
+    if link is not None and "sample" in link.given():
+        st.session_state["stack_choice"] = st.session_state["stack_choice_saved"] = link.given()["sample"]
     saved = st.session_state.get("stack_choice_saved", options[0])
     with st.sidebar:
         st.header("Stack")
@@ -73,12 +88,156 @@ def stack_picker():
         st.session_state["uploaded_stack"] = (upload.name, upload.getvalue().decode("utf-8", errors="replace"))
         st.session_state["stack_choice_saved"] = UPLOAD_CHOICE_PREFIX + upload.name
         st.rerun()
+    if link is not None:
+        link.keep("sample", choice if choice in demos else None)
+        if choice not in demos:
+            link.note("Your own stack is not in the link: share its stack file (Stack builder → Download), "
+                      "and the link opens with a demo sample.")
     if choice == BUILDER_CHOICE:
         return st.session_state["builder_text"], None, "your stack"
     if choice.startswith(UPLOAD_CHOICE_PREFIX) and uploaded:
         return uploaded[1], None, uploaded[0]
     path = demos[choice]
     return path.read_text(encoding="utf-8"), str(path.parent), path.name
+
+
+class PageLink:
+    """A page's settings in the browser's address bar, so a copied link reproduces the view.
+
+    Create it at the top of the page, after the title. Before each widget
+    that defines the result, :meth:`attach` its parameter to the widget's
+    key; after the widgets, :meth:`publish` writes the current values into
+    the URL and shows the link to copy at the top of the sidebar (call it
+    again after widgets drawn later on the page). The parameters and
+    their checks are in :mod:`filmcalc.links`.
+
+    A link seeds the widgets only when it is new to this page (opened from
+    outside, from the start page, or by the browser's back button); while
+    the user works on the page the widgets lead and the URL follows.
+    Parameters a new link leaves out go back to the page's defaults.
+
+    Parameters
+    ----------
+    page : str
+        The page's URL path (a key of :data:`filmcalc.links.PAGES`).
+    options : dict, optional
+        Choices known only now, by parameter name (URL word → value), e.g.
+        the demo input files; the demo samples are added here.
+    """
+
+    def __init__(self, page, options=None):
+        self.page = page
+        self.options = {"sample": demo_sample_choices(), **(options or {})}
+        query = {name: st.query_params.get_all(name) for name in st.query_params}
+        self._written_key = f"link_written::{page}"
+        self.fresh = bool(query) and _as_lists(query) != st.session_state.get(self._written_key)
+        if self.fresh:  # read once: even if the page stops before publishing, the next run is the user's
+            st.session_state[self._written_key] = _as_lists(query)
+        decoded = links.decode(page, query, self.options) if self.fresh else links.Decoded()
+        self._given = decoded.values
+        self._ignored = list(decoded.ignored)
+        self._notice = st.empty()
+        self._box = st.sidebar.empty()  # the link to copy, at the top of the sidebar
+        self._attached = {}
+        self._kept = {}
+        self._notes = []
+        self._show_notice()
+
+    def given(self):
+        """The values a new link gives (name → value); empty while the user works on the page."""
+        return self._given if self.fresh else {}
+
+    def attach(self, name, key, fits=None, misfit="does not fit here", convert=None):
+        """Tie parameter ``name`` to the widget ``key`` (or a tuple of keys, one per part of the value).
+
+        Call it just before the widget is drawn. When the link is new, its
+        value goes into the widget (``convert`` turns it into the widget's
+        type first); a parameter the link leaves out resets the widget to its
+        default. ``fits(value)`` can refuse a value that is valid in general
+        but not here (a pixel outside this photo): it is then left out and
+        the notice names it with ``misfit``, the reason.
+        """
+        self._attached[name] = key
+        if not self.fresh:
+            return
+        keys = key if isinstance(key, tuple) else (key,)
+        if name not in self._given:
+            for k in keys:
+                st.session_state.pop(k, None)
+            return
+        value = self._given[name]
+        if fits is not None and not fits(value):
+            self.refuse(name, value, misfit)
+            for k in keys:
+                st.session_state.pop(k, None)
+            return
+        value = convert(value) if convert else value
+        for k, v in zip(keys, value if isinstance(key, tuple) else (value,)):
+            st.session_state[k] = v
+
+    def refuse(self, name, value, reason):
+        """Leave a link's value out after all, and say why in the notice."""
+        self._given.pop(name, None)
+        shown = ",".join(f"{v:g}" for v in value) if isinstance(value, tuple) else (
+            f"{value:g}" if isinstance(value, float) else value)
+        self._ignored.append(f"{name} = {shown}: {reason}")
+        self._show_notice()
+
+    def keep(self, name, value):
+        """Put ``value`` (not a widget's) into the link under ``name``; None leaves it out."""
+        self._kept[name] = value
+
+    def note(self, text):
+        """A sentence shown under the link (what it does not hold)."""
+        if text not in self._notes:
+            self._notes.append(text)
+
+    def values(self):
+        """The page's current settings, name → value, from the attached widgets and :meth:`keep`."""
+        current = {}
+        for name, key in self._attached.items():
+            if isinstance(key, tuple):
+                parts = [st.session_state.get(k) for k in key]
+                current[name] = None if any(p is None for p in parts) else tuple(parts)
+            else:
+                current[name] = st.session_state.get(key)
+        current.update(self._kept)
+        return current
+
+    def publish(self):
+        """Write the current settings into the address bar and show the link to copy.
+
+        Call it once the widgets that define the result are drawn, and again after any drawn later.
+        """
+        encoded = links.encode(self.page, self.values(), self.options)
+        wanted = _as_lists(encoded)
+        if wanted != _as_lists({name: st.query_params.get_all(name) for name in st.query_params}):
+            st.query_params.from_dict(encoded)
+        st.session_state[self._written_key] = wanted
+        with self._box.container():
+            st.caption(":material/link: **Link to this view**: copy it with the button at its right to share "
+                       "these settings.")
+            st.code(page_address(self.page, links.query_string(encoded)), language=None)
+            if self._notes:
+                st.caption(" ".join(self._notes))
+
+    def _show_notice(self):
+        if self._ignored:
+            self._notice.warning(links.Decoded(ignored=self._ignored).notice(), icon=":material/link_off:")
+
+
+def _as_lists(query):
+    """Query parameters with every value as a list of strings, to compare links."""
+    return {name: [value] if isinstance(value, str) else list(value) for name, value in query.items()}
+
+
+def page_address(page, query):
+    """The full address of ``page`` with ``query`` (the browser's own address when known, else a path)."""
+    base = st.context.url
+    if not base:
+        host = st.context.headers.get("Host") if st.context.headers else None
+        base = f"http://{host}/{page}" if host else f"/{page}"
+    return base.rstrip("/") + ("?" + query if query else "")
 
 
 def choose_demo_stack(stack_file, marker):
@@ -126,6 +285,10 @@ def cautions_box():
                "to make films can hurt you: see the Cautions page and follow your local safety rules.")
 
 
+RUN_CANCEL_HINT = ("While it runs, the Stop button at the top right of the page cancels it; your settings stay "
+                   "as they are.")
+
+
 @st.cache_data(show_spinner=False, max_entries=16)
 def cached_colours(text, base_dir, thickness_range, angle_range, observer, polarisation, na):
     """Film colours (exposure 1) over a thickness × angle grid, cached by every input that defines them."""
@@ -142,6 +305,38 @@ def cached_reflectance_map(text, base_dir, thickness_range, angle_deg, na):
     stack = loads_stack(text, base_dir=base_dir)
     return reflectance_sweep(stack, np.arange(380.0, 781.0, 2.0), np.linspace(*thickness_range), [angle_deg],
                              numerical_aperture=na)
+
+
+@st.cache_data(show_spinner=False, max_entries=8)
+def cached_bench_chart(text, base_dir, step_nm, top_nm, angle_deg, observer, exposure, polarisation, na, unit, paper):
+    """The printable chart (PNG and PDF bytes) and its colour table (CSV text), cached by every input.
+
+    Swatches every ``step_nm`` from 0 to ``top_nm`` (nm) at ``angle_deg`` (°), with the chart's exposure.
+    """
+    import csv
+    import io
+    import tempfile
+
+    from filmcalc.charts import bench_chart, colour_table, save_bench_chart
+
+    stack = loads_stack(text, base_dir=base_dir)
+    thickness = np.arange(0.0, top_nm + step_nm / 2, step_nm)
+    swatches = film_colours(stack, thickness, [angle_deg], observer=observer, exposure=exposure,
+                            polarisation=polarisation, numerical_aperture=na)
+    fig = bench_chart(swatches, stack, unit, paper)
+    files = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        for ext in ("png", "pdf"):
+            path = Path(tmp) / f"chart.{ext}"
+            save_bench_chart(fig, path)
+            files[ext] = path.read_bytes()
+    rows = colour_table(swatches)
+    buffer = io.StringIO()
+    writer = csv.DictWriter(buffer, fieldnames=list(rows[0]))
+    writer.writeheader()
+    writer.writerows(rows)
+    files["csv"] = buffer.getvalue()
+    return files
 
 
 def pick_grid(height, width, cells=100):

@@ -13,8 +13,10 @@ import streamlit as st
 from filmcalc.charts import kymograph_figure, map_figure, plus_minus, thinning_figure
 from filmcalc.errors import FilmcalcError
 from filmcalc.frames import IMAGE_SUFFIXES, VIDEO_SUFFIXES, open_frames
+from filmcalc.links import UPLOAD
 from filmcalc.sequence import export_movie, export_tiff_stack, load_series, open_cube, run_sequence
-from filmcalc.ui.common import DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, stack_picker
+from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_box, choose_demo_stack, load_or_stop,
+                                stack_picker)
 
 SEQUENCE_DIR = DEMO_DIR / "sequences"
 
@@ -33,21 +35,35 @@ def workspace():
 
 demos = {json.loads(p.read_text())["recording"]: json.loads(p.read_text())
          for p in sorted(SEQUENCE_DIR.glob("*.json"))}
-choice = st.radio("Recording", ["demo recording", "my recording"], horizontal=True, key="seq_source")
+link = PageLink("film-over-time", {"recording": {**{Path(n).stem: n for n in demos}, UPLOAD: UPLOAD}})
+if link.fresh:  # a new link chooses the recording: a demo by name, or "upload" for the user's own
+    given = link.given().get("recording")
+    st.session_state.pop("seq_source", None)
+    st.session_state.pop("seq_demo", None)
+    if given == UPLOAD:
+        st.session_state["seq_source"] = "my recording"
+    elif given:
+        st.session_state["seq_source"], st.session_state["seq_demo"] = "demo recording", given
+choice = st.radio("Recording", ["demo recording", "my recording"], horizontal=True, key="seq_source",
+                  persist_state="session")
 if choice == "demo recording":
-    name = st.selectbox("Demo recording", list(demos), key="seq_demo",
+    name = st.selectbox("Demo recording", list(demos), key="seq_demo", persist_state="session",
                         help="Invented recordings rendered by demo_data/make_demo_sequence.py.")
+    link.keep("recording", name)
     settings = demos[name]
     path = SEQUENCE_DIR / name
     choose_demo_stack(settings["stack"], f"seq::{name}")
     st.caption(f"What the lab knows: {settings['note']}.")
 else:
     settings = {}
+    link.keep("recording", UPLOAD)
+    link.note("The recording you uploaded is not in the link: whoever opens it must upload the same files.")
     uploads = st.file_uploader("A video, a multi-page TIFF, or several frames (PNG, TIFF, JPEG; sorted by name)",
                                type=[s[1:] for s in VIDEO_SUFFIXES + IMAGE_SUFFIXES], accept_multiple_files=True,
                                key="seq_upload")
     if not uploads:
         st.info("Upload a recording, or pick the demo recording above.")
+        link.publish()
         cautions_box()
         st.stop()
     folder = workspace() / "input"
@@ -62,15 +78,19 @@ else:
     single = len(files) == 1 and files[0].suffix.lower() in VIDEO_SUFFIXES + (".tif", ".tiff")
     path, name = (files[0], files[0].name) if single else (folder, f"{len(files)} frames")
 
-text, base_dir, origin = stack_picker()
+text, base_dir, origin = stack_picker(link)
 stack = load_or_stop(text, base_dir, origin)
 
 with st.sidebar:
     st.header("Recording")
+    link.attach("fps", f"seq_fps::{name}")
     fps = st.number_input("Frames per second", 0.0, 1e7, float(settings.get("fps", 0.0)), 1.0, key=f"seq_fps::{name}",
+                          persist_state="session",
                           help="0: the video's own rate; frames and TIFF pages then count as 1 s apart.")
-    frames_text = st.text_input("Frames (START:STOP:STEP)", "", key=f"seq_frames::{name}",
+    link.attach("frames", f"seq_frames::{name}")
+    frames_text = st.text_input("Frames (START:STOP:STEP)", "", key=f"seq_frames::{name}", persist_state="session",
                                 help="0-based, STOP excluded; empty for all frames.")
+link.publish()  # before the recording is opened, so a range that selects nothing is in the link too
 try:
     source = open_frames(path, frames_text or None, fps or None)
 except FilmcalcError as exc:
@@ -82,30 +102,55 @@ with st.sidebar:
     st.header("What you know")
     c1, c2 = st.columns(2)
     rng = settings.get("range", [0, 1500])
-    lo = c1.number_input("Thinnest (nm)", 0.0, 50000.0, float(rng[0]), 10.0, key=f"seq_lo::{name}")
-    hi = c2.number_input("Thickest (nm)", 1.0, 50000.0, float(rng[1]), 10.0, key=f"seq_hi::{name}")
+    link.attach("t_min_nm", f"seq_lo::{name}")
+    lo = c1.number_input("Thinnest (nm)", 0.0, 50000.0, float(rng[0]), 10.0, key=f"seq_lo::{name}",
+                         persist_state="session")
+    link.attach("t_max_nm", f"seq_hi::{name}")
+    hi = c2.number_input("Thickest (nm)", 1.0, 50000.0, float(rng[1]), 10.0, key=f"seq_hi::{name}",
+                         persist_state="session")
+    link.attach("pixel_um", f"seq_px::{name}")
     pixel = st.number_input("Pixel size on the film (µm)", 0.0, 1e6, float(settings.get("pixel_size_um", 0.0)), 1.0,
-                            key=f"seq_px::{name}", help="Gives the liquid volume; 0 if not known.")
-    use_anchor = st.checkbox("A pixel of known thickness in the first frame", False, key=f"seq_use_anchor::{name}")
+                            key=f"seq_px::{name}", persist_state="session",
+                            help="Gives the liquid volume; 0 if not known.")
+    link.attach("use_anchor", f"seq_use_anchor::{name}")
+    use_anchor = st.checkbox("A pixel of known thickness in the first frame", False, key=f"seq_use_anchor::{name}",
+                             persist_state="session")
+    link.attach("anchor", (f"seq_ax::{name}", f"seq_ay::{name}", f"seq_an::{name}"),
+                fits=lambda a: a[0] < W and a[1] < H,
+                misfit=f"outside the frame ({W} × {H} px)")
     if use_anchor:
         cols = st.columns(3)
-        anchor = [cols[0].number_input("x", 0, W - 1, W // 2, key=f"seq_ax::{name}"),
-                  cols[1].number_input("y", 0, H - 1, H // 2, key=f"seq_ay::{name}"),
-                  cols[2].number_input("nm", 0.0, 50000.0, 0.0, key=f"seq_an::{name}")]
+        anchor = [cols[0].number_input("x", 0, W - 1, W // 2, key=f"seq_ax::{name}", persist_state="session"),
+                  cols[1].number_input("y", 0, H - 1, H // 2, key=f"seq_ay::{name}", persist_state="session"),
+                  cols[2].number_input("nm", 0.0, 50000.0, 0.0, key=f"seq_an::{name}", persist_state="session")]
     st.header("Where to follow it")
     p_default = settings.get("point", [W // 2, H // 2])
     cols = st.columns(2)
-    point = (cols[0].number_input("point x", 0, W - 1, int(p_default[0]), key=f"seq_px0::{name}"),
-             cols[1].number_input("point y", 0, H - 1, int(p_default[1]), key=f"seq_py0::{name}"))
+    link.attach("point", (f"seq_px0::{name}", f"seq_py0::{name}"), fits=lambda p: p[0] < W and p[1] < H,
+                misfit=f"outside the frame ({W} × {H} px)")
+    point = (cols[0].number_input("point x", 0, W - 1, int(p_default[0]), key=f"seq_px0::{name}",
+                                  persist_state="session"),
+             cols[1].number_input("point y", 0, H - 1, int(p_default[1]), key=f"seq_py0::{name}",
+                                  persist_state="session"))
     l_default = settings.get("line", [W // 2, 0, W // 2, H - 1])
     cols = st.columns(4)
+    link.attach("line", tuple(f"seq_l{i}::{name}" for i in range(4)),
+                fits=lambda v: v[0] < W and v[2] < W and v[1] < H and v[3] < H,
+                misfit=f"outside the frame ({W} × {H} px)")
     line = tuple(cols[i].number_input(lbl, 0, (W if i % 2 == 0 else H) - 1, int(l_default[i]),
-                                      key=f"seq_l{i}::{name}") for i, lbl in enumerate(("x0", "y0", "x1", "y1")))
+                                      key=f"seq_l{i}::{name}", persist_state="session")
+                 for i, lbl in enumerate(("x0", "y0", "x1", "y1")))
     st.header("Where to run")
-    where = st.radio("Run on", ["this process", "local Dask workers"], key="seq_where",
+    link.attach("run_on", "seq_where")
+    where = st.radio("Run on", ["this process", "local Dask workers"], key="seq_where", persist_state="session",
                      help="Dask workers map several frames at once (one per core); worth it for long recordings.")
+    link.attach("workers", "seq_workers")
     workers = st.number_input("Workers", 1, 64, max(1, min(8, os.cpu_count() or 1)), key="seq_workers",
-                              disabled=where == "this process")
+                              persist_state="session", disabled=where == "this process")
+link.attach("same_scale", "seq_fixed")  # view choices drawn with the result; a link's wait until then
+link.attach("log_log", "seq_log")
+link.note("The link holds the settings, not the result: press “Map every frame” after opening it.")
+link.publish()
 
 # Preview: scrub the recording before running.
 k_preview = st.slider("Preview frame", 0, len(source) - 1, 0, key=f"seq_preview::{name}") if len(source) > 1 else 0
@@ -127,6 +172,8 @@ time_text = f"t = {source.times_s()[k_preview]:.4g} s" if source.fps else "frame
 st.caption(f"{source.names[k_preview]}, {time_text}; {len(source)} frames of {W} × {H} px selected.")
 
 run_key = (str(path), frames_text, fps, lo, hi, pixel, use_anchor, point, line, text)
+st.caption(f"Mapping shows its progress frame by frame. {RUN_CANCEL_HINT} Frames already mapped are then "
+           "discarded.")
 if st.button("Map every frame", type="primary", key="seq_run"):
     out = workspace() / "run"
     shutil.rmtree(out, ignore_errors=True)
@@ -186,13 +233,14 @@ with tabs[0]:
         maps = cube["thickness_nm"]
         sample = np.asarray(maps[good[0]])
         lo_c, hi_c = np.nanpercentile(sample, [1, 99]) if np.isfinite(sample).any() else (0, 1)
-        fixed = st.checkbox("Same colour scale for every frame (that of the first)", True, key="seq_fixed")
+        fixed = st.checkbox("Same colour scale for every frame (that of the first)", True, key="seq_fixed",
+                            persist_state="session")
         st.plotly_chart(map_figure(np.asarray(maps[k]), f"{series['frame'][k]}, t = {times[k]:.4g} s", "nm",
                                    zmin=lo_c if fixed else None, zmax=hi_c if fixed else None,
                                    pixel_size_um=pixel or None), width="stretch")
 with tabs[1]:
     log = st.checkbox("Log–log against t − t₀ (a power law is a straight line)", False, key="seq_log",
-                      disabled=fit is None)
+                      persist_state="session", disabled=fit is None)
     shown = {"mean over the film": series["mean_nm"]}
     point_col = next((c for c in series if c.startswith("point_1_")), None)
     if point_col:
@@ -240,4 +288,5 @@ with tabs[4]:
         c2.download_button("Movie (GIF)", (out / "thickness.gif").read_bytes(), "thickness.gif", key="seq_dl_gif")
     st.caption("The full cube (cube.zarr, readable with dask.array.from_zarr) is written by the command "
                "`filmcalc sequence`; see the README.")
+link.publish()
 cautions_box()

@@ -5,7 +5,7 @@ import streamlit as st
 from filmcalc.charts import spectrum_figure
 from filmcalc.errors import FilmcalcError
 from filmcalc.stack import POLARISATIONS
-from filmcalc.ui.common import cautions_box, load_or_stop, spectrum_and_colour, stack_picker
+from filmcalc.ui.common import PageLink, cautions_box, load_or_stop, spectrum_and_colour, stack_picker
 
 st.title("Film spectrum")
 st.write(
@@ -13,23 +13,30 @@ st.write(
     "light. Pick a demo sample or load your own stack file, then move the thickness."
 )
 
-text, base_dir, origin = stack_picker()
+link = PageLink("film-spectrum")
+text, base_dir, origin = stack_picker(link)
 stack = load_or_stop(text, base_dir, origin)
 
 film = stack.film
 with st.sidebar:
     st.header("Film and light")
+    link.attach("thickness_nm", f"thickness::{origin}")
     thickness = st.slider("Film thickness (nm)", 0.0, 2000.0, float(min(film.thickness_nm, 2000.0)), 1.0,
-                          format="%.0f nm", key=f"thickness::{origin}")
-    angle = st.slider("Angle of incidence (°)", 0.0, 80.0, float(stack.light.angle_deg), 0.5,
-                      format="%.1f°", key=f"angle::{origin}")
+                          format="%.0f nm", key=f"thickness::{origin}", persist_state="session")
+    link.attach("angle_deg", f"angle::{origin}")
+    angle = st.slider("Angle of incidence (°)", 0.0, 80.0, float(min(stack.light.angle_deg, 80.0)), 0.5,
+                      format="%.1f°", key=f"angle::{origin}", persist_state="session")
+    link.attach("polarisation", f"pol::{origin}")
     polarisation = st.radio("Polarisation", POLARISATIONS,
                             index=POLARISATIONS.index(stack.light.polarisation), horizontal=True,
-                            key=f"pol::{origin}")
+                            key=f"pol::{origin}", persist_state="session")
+    link.attach("exposure", f"exposure::{origin}")
     exposure = st.slider("Exposure (×)", 0.5, 30.0, 1.0, 0.5, format="%.1f×", key=f"exposure::{origin}",
+                         persist_state="session",
                          help="Scales the reflected light before it becomes a colour, as a camera's exposure "
                               "would. 1× shows the film next to a perfect white; weakly reflecting films such "
                               "as soap films (under 8 %) need 8–12× to show their colours brightly.")
+link.publish()
 
 try:
     with st.spinner("Computing…"):

@@ -11,11 +11,11 @@ import streamlit as st
 from filmcalc import io as fio
 from filmcalc.charts import map_figure
 from filmcalc.errors import FilmcalcError
-from filmcalc.fringes import (FLAG_MEANINGS, FLAGS, fringe_images, fringe_map, fringe_spacing_nm,
-                              line_profile_thickness)
+from filmcalc.fringes import FLAG_MEANINGS, FLAGS, fringe_images, fringe_map, fringe_spacing_nm, line_profile_thickness
+from filmcalc.links import UPLOAD
 from filmcalc.thickness import TRENDS
-from filmcalc.ui.common import (DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, pick_grid, picked_pixel,
-                                stack_picker)
+from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_box, choose_demo_stack, load_or_stop,
+                                pick_grid, picked_pixel, stack_picker)
 
 FRINGE_DIR = DEMO_DIR / "fringes"
 
@@ -26,23 +26,36 @@ st.write("Under one line of light (a sodium lamp, a laser, a band-pass filter) a
          "and blue channels under two-line light) can fix the fringe order without a known pixel.")
 
 demos = {json.loads(p.read_text())["photo"]: json.loads(p.read_text()) for p in sorted(FRINGE_DIR.glob("*.json"))}
-source = st.radio("Photo", ["demo photo", "my photo"], horizontal=True, key="fr_source")
+link = PageLink("fringes", {"photo": {**{Path(n).stem: n for n in demos}, UPLOAD: UPLOAD}})
+if link.fresh:  # a new link chooses the photo: a demo by name, or "upload" for the user's own
+    given = link.given().get("photo")
+    st.session_state.pop("fr_source", None)
+    st.session_state.pop("fr_demo", None)
+    if given == UPLOAD:
+        st.session_state["fr_source"] = "my photo"
+    elif given:
+        st.session_state["fr_source"], st.session_state["fr_demo"] = "demo photo", given
+source = st.radio("Photo", ["demo photo", "my photo"], horizontal=True, key="fr_source", persist_state="session")
 if source == "demo photo":
-    name = st.selectbox("Demo photo", list(demos), key="fr_demo",
+    name = st.selectbox("Demo photo", list(demos), key="fr_demo", persist_state="session",
                         help="Invented samples rendered by demo_data/make_demo_fringes.py.")
+    link.keep("photo", name)
     settings = demos[name]
     data = (FRINGE_DIR / name).read_bytes()
     choose_demo_stack(settings["stack"], f"fr::{name}")
     st.caption(f"What the lab knows: {settings['note']}.")
 else:
+    link.keep("photo", UPLOAD)
+    link.note("The photo you uploaded is not in the link: whoever opens it must upload the same photo.")
     upload = st.file_uploader("Photo (PNG, JPEG or TIFF)", type=["png", "jpg", "jpeg", "tif", "tiff"], key="fr_upload")
     if upload is None:
         st.info("Upload a photo, or pick a demo photo above.")
+        link.publish()
         cautions_box()
         st.stop()
     data, name, settings = upload.getvalue(), upload.name, {}
 
-text, base_dir, origin = stack_picker()
+text, base_dir, origin = stack_picker(link)
 stack = load_or_stop(text, base_dir, origin)
 try:
     photo = fio.load_photo(data, name=name)
@@ -53,6 +66,17 @@ H, W = photo.shape
 anchor_default = settings.get("anchor") or [W // 2, H // 2, 0.0]
 line_default = settings.get("line") or [0, H // 2, W - 1, H // 2]
 
+
+def on_photo(pixel_values):
+    """True when every (x, y) pair lies on this photo."""
+    xs, ys = pixel_values[0::2], pixel_values[1::2]
+    return all(0 <= x < W for x in xs) and all(0 <= y < H for y in ys)
+
+
+link.attach("anchor", tuple(f"fr_anchor{i}::{name}" for i in range(3)), fits=lambda a: on_photo(a[:2]),
+            misfit=f"outside the photo ({W} × {H} px)")
+link.attach("line", tuple(f"fr_line{i}::{name}" for i in range(4)), fits=on_photo,
+            misfit=f"outside the photo ({W} × {H} px)")
 # Clicks on the photo fill the anchor or the line's ends (read before those inputs are drawn).
 pick_key = f"fr_pick::{name}"
 for i, v in enumerate(anchor_default):
@@ -74,40 +98,55 @@ if selection and st.session_state.get(pick_key + "_seen") != repr(selection):
 with st.sidebar:
     st.header("Light")
     wavelengths = settings.get("wavelengths_nm", [589.3])
-    two = st.checkbox("Two wavelengths", len(wavelengths) == 2, key=f"fr_two::{name}")
+    link.attach("two_wavelengths", f"fr_two::{name}")
+    two = st.checkbox("Two wavelengths", len(wavelengths) == 2, key=f"fr_two::{name}", persist_state="session")
     channels_default = settings.get("channels") or (["grey"] if photo.greyscale else ["red", "blue"])
     chosen_wl, chosen_ch = [], []
     for i in range(2 if two else 1):
         c1, c2 = st.columns(2)
         wl_default = wavelengths[i] if i < len(wavelengths) else 488.0
+        link.attach(f"wavelength{i + 1}_nm", f"fr_wl{i}::{name}")
         chosen_wl.append(c1.number_input(f"λ{i + 1} (nm)", 200.0, 2000.0, float(wl_default), 0.1,
-                                         key=f"fr_wl{i}::{name}"))
+                                         key=f"fr_wl{i}::{name}", persist_state="session"))
         options = ["grey", "red", "green", "blue"]
         ch = channels_default[i] if i < len(channels_default) else "blue"
-        chosen_ch.append(c2.selectbox(f"channel {i + 1}", options, options.index(ch), key=f"fr_ch{i}::{name}"))
+        link.attach(f"channel{i + 1}", f"fr_ch{i}::{name}")
+        chosen_ch.append(c2.selectbox(f"channel {i + 1}", options, options.index(ch), key=f"fr_ch{i}::{name}",
+                                      persist_state="session"))
     st.header("What you know")
-    mode = st.radio("Result", ["map", "along a line"], horizontal=True, key=f"fr_mode::{name}")
+    link.attach("result", f"fr_mode::{name}")
+    mode = st.radio("Result", ["map", "along a line"], horizontal=True, key=f"fr_mode::{name}",
+                    persist_state="session")
     c1, c2 = st.columns(2)
+    link.attach("t_min_nm", f"fr_lo::{name}")
     lo = c1.number_input("Thinnest (nm)", 0.0, 50000.0, float(settings.get("range", [0, 2000])[0]), 10.0,
-                         key=f"fr_lo::{name}")
+                         key=f"fr_lo::{name}", persist_state="session")
+    link.attach("t_max_nm", f"fr_hi::{name}")
     hi = c2.number_input("Thickest (nm)", 1.0, 50000.0, float(settings.get("range", [0, 2000])[1]), 10.0,
-                         key=f"fr_hi::{name}")
+                         key=f"fr_hi::{name}", persist_state="session")
+    link.attach("use_anchor", f"fr_use_anchor::{name}")
     use_anchor = st.checkbox("A pixel of known thickness", bool(settings.get("anchor")) or mode == "along a line",
-                             key=f"fr_use_anchor::{name}")
+                             key=f"fr_use_anchor::{name}", persist_state="session")
     cols = st.columns(3)
-    anchor = [cols[i].number_input(lbl, key=f"fr_anchor{i}::{name}") for i, lbl in enumerate(("x", "y", "nm"))]
+    anchor = [cols[i].number_input(lbl, key=f"fr_anchor{i}::{name}", persist_state="session")
+              for i, lbl in enumerate(("x", "y", "nm"))]
     trend_options = ["not known"] + list(TRENDS)
-    trend = st.selectbox("Film gets thicker towards", trend_options,
-                         trend_options.index(settings.get("trend") or "not known"), key=f"fr_trend::{name}")
+    link.attach("trend", f"fr_trend::{name}")
+    trend = st.selectbox("Film gets thicker towards", trend_options, persist_state="session",
+                         index=trend_options.index(settings.get("trend") or "not known"), key=f"fr_trend::{name}")
     if mode == "along a line":
         cols = st.columns(4)
-        line = [cols[i].number_input(lbl, 0, (W if i % 2 == 0 else H) - 1, key=f"fr_line{i}::{name}")
+        line = [cols[i].number_input(lbl, 0, (W if i % 2 == 0 else H) - 1, key=f"fr_line{i}::{name}",
+                                     persist_state="session")
                 for i, lbl in enumerate(("x0", "y0", "x1", "y1"))]
+        link.attach("direction", f"fr_dir::{name}")
         direction = st.radio("Along the line the film gets", ["thicker", "thinner"], horizontal=True,
-                             key=f"fr_dir::{name}")
+                             key=f"fr_dir::{name}", persist_state="session")
         st.caption("The known thickness (nm above) is the thickness at the line's start.")
     st.radio("A click on the photo sets", ["the known pixel", "the line's start", "the line's end"],
              key=f"fr_click::{name}")
+link.note("The link holds the settings, not the result: press “Compute the thickness” after opening it.")
+link.publish()
 
 try:
     images = fringe_images(photo, chosen_wl, chosen_ch)
@@ -135,6 +174,7 @@ fig.update_layout(height=380, margin={"l": 0, "r": 0, "t": 10, "b": 0}, dragmode
 st.plotly_chart(fig, width="stretch", on_select="rerun", selection_mode=("points",), key=pick_key)
 st.caption("Click the photo to set the pixel chosen in the sidebar (drag to zoom in, double-click to zoom out).")
 
+st.caption(f"A map shows its progress while it is computed. {RUN_CANCEL_HINT}")
 if not st.button("Compute the thickness", type="primary", key="fr_run"):
     cautions_box()
     st.stop()

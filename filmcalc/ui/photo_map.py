@@ -11,10 +11,11 @@ import streamlit as st
 from filmcalc import io as fio
 from filmcalc.charts import calibration_figure, map_figure
 from filmcalc.errors import FilmcalcError
-from filmcalc.thickness import (FLAG_MEANINGS, FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded,
-                                line_profile, thickness_map)
-from filmcalc.ui.common import (DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, pick_grid, picked_pixel,
-                                picked_rectangle, stack_picker)
+from filmcalc.links import UPLOAD
+from filmcalc.thickness import (FLAG_MEANINGS, FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded, line_profile,
+                                thickness_map)
+from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_box, choose_demo_stack, load_or_stop,
+                                pick_grid, picked_pixel, picked_rectangle, stack_picker)
 
 PHOTO_DIR = DEMO_DIR / "photos"
 
@@ -24,10 +25,20 @@ st.write("Load a photo of interference colours, say which stack it shows and wha
          "uncertainty. Pixel coordinates count from the top-left corner: x along a row, y down the image.")
 
 demos = {json.loads(p.read_text())["photo"]: json.loads(p.read_text()) for p in sorted(PHOTO_DIR.glob("*.json"))}
-source = st.radio("Photo", ["demo photo", "my photo"], horizontal=True, key="photo_source")
+link = PageLink("photo-map", {"photo": {**{Path(n).stem: n for n in demos}, UPLOAD: UPLOAD}})
+if link.fresh:  # a new link chooses the photo: a demo by name, or "upload" for the user's own
+    given = link.given().get("photo")
+    st.session_state.pop("photo_source", None)
+    st.session_state.pop("photo_demo", None)
+    if given == UPLOAD:
+        st.session_state["photo_source"] = "my photo"
+    elif given:
+        st.session_state["photo_source"], st.session_state["photo_demo"] = "demo photo", given
+source = st.radio("Photo", ["demo photo", "my photo"], horizontal=True, key="photo_source", persist_state="session")
 if source == "demo photo":
-    name = st.selectbox("Demo photo", list(demos), key="photo_demo",
+    name = st.selectbox("Demo photo", list(demos), key="photo_demo", persist_state="session",
                         help="Invented samples rendered by demo_data/make_demo_photos.py.")
+    link.keep("photo", name)
     settings = demos[name]
     data, photo_name = (PHOTO_DIR / name).read_bytes(), name
     # Show the demo's own stack unless the user picked another one for it.
@@ -37,15 +48,18 @@ if source == "demo photo":
     choose_demo_stack(settings["stack"], f"photo::{name}")
     st.caption(f"What the lab knows: {settings['note']}.")
 else:
+    link.keep("photo", UPLOAD)
+    link.note("The photo you uploaded is not in the link: whoever opens it must upload the same photo.")
     upload = st.file_uploader("Photo (PNG, JPEG or TIFF; 8 or 16 bit)", type=["png", "jpg", "jpeg", "tif", "tiff"],
                               key="photo_upload")
     if upload is None:
         st.info("Upload a photo, or pick a demo photo above.")
+        link.publish()
         cautions_box()
         st.stop()
     data, photo_name, settings = upload.getvalue(), upload.name, {}
 
-text, base_dir, origin = stack_picker()
+text, base_dir, origin = stack_picker(link)
 stack = load_or_stop(text, base_dir, origin)
 
 try:
@@ -62,9 +76,27 @@ H, W = photo.shape
 # Anchors and the reference region can be set by clicking or box-selecting on the photo. The
 # chart's selection is read here, before the widgets it fills in are drawn on this run.
 anchor_key, version_key, pick_key = f"anchor_list::{photo_name}", f"anchor_version::{photo_name}", f"pick::{photo_name}"
+
+
+def on_photo(pixel_values):
+    """True when every (x, y, …) pixel lies on this photo."""
+    xs, ys = pixel_values[0::2], pixel_values[1::2]
+    return all(0 <= x < W for x in xs) and all(0 <= y < H for y in ys)
+
+
+if link.fresh:  # a new link's anchors replace the table; without any, the demo's own come back
+    if "anchor" in link.given():
+        fitting = [a for a in link.given()["anchor"] if on_photo(a[:2])]
+        if len(fitting) < len(link.given()["anchor"]):
+            link.refuse("anchor", f"{len(link.given()['anchor']) - len(fitting)} pixel(s)", f"outside the photo "
+                        f"({W} × {H} px)")
+        st.session_state[anchor_key] = [{"x": x, "y": y, "thickness (nm)": nm} for x, y, nm in fitting]
+        st.session_state[version_key] = st.session_state.get(version_key, 0) + 1
+    else:
+        st.session_state.pop(anchor_key, None)
 if anchor_key not in st.session_state:
     st.session_state[anchor_key] = [{"x": a[0], "y": a[1], "thickness (nm)": a[2]} for a in settings.get("anchors", [])]
-    st.session_state[version_key] = 0
+    st.session_state[version_key] = st.session_state.get(version_key, 0) + 1
 selection = (st.session_state.get(pick_key) or {}).get("selection")
 signature = repr(selection)
 if selection and st.session_state.get(pick_key + "_seen") != signature:
@@ -85,12 +117,19 @@ with st.sidebar:
     st.header("What you know")
     lo_default, hi_default = settings.get("range", [0, 1500])
     c1, c2 = st.columns(2)
-    lo = c1.number_input("Thinnest (nm)", 0.0, 50000.0, float(lo_default), 10.0, key=f"lo::{photo_name}")
-    hi = c2.number_input("Thickest (nm)", 1.0, 50000.0, float(hi_default), 10.0, key=f"hi::{photo_name}")
+    link.attach("t_min_nm", f"lo::{photo_name}")
+    lo = c1.number_input("Thinnest (nm)", 0.0, 50000.0, float(lo_default), 10.0, key=f"lo::{photo_name}",
+                         persist_state="session")
+    link.attach("t_max_nm", f"hi::{photo_name}")
+    hi = c2.number_input("Thickest (nm)", 1.0, 50000.0, float(hi_default), 10.0, key=f"hi::{photo_name}",
+                         persist_state="session")
     trend_options = ["not known"] + list(TRENDS)
-    trend = st.selectbox("Film gets thicker towards", trend_options,
+    link.attach("trend", f"trend::{photo_name}")
+    trend = st.selectbox("Film gets thicker towards", trend_options, persist_state="session",
                          index=trend_options.index(settings.get("trend") or "not known"), key=f"trend::{photo_name}")
-    pixel = st.number_input("Pixel size (µm, 0 = unknown)", 0.0, 10000.0, 0.0, 0.1, key=f"px::{photo_name}")
+    link.attach("pixel_um", f"px::{photo_name}")
+    pixel = st.number_input("Pixel size (µm, 0 = unknown)", 0.0, 10000.0, 0.0, 0.1, key=f"px::{photo_name}",
+                            persist_state="session")
     st.caption("Anchors: pixels of known thickness (x, y in pixels; thickness in nm). Click the photo to add one "
                "with the thickness below, or edit the table.")
     st.number_input("Thickness at the next clicked pixel (nm)", 0.0, 50000.0, 0.0, 1.0, key=f"next_nm::{photo_name}")
@@ -99,9 +138,14 @@ with st.sidebar:
                                   column_config={"x": st.column_config.NumberColumn(min_value=0, step=1),
                                                  "y": st.column_config.NumberColumn(min_value=0, step=1)})
     st.session_state[anchor_key + "_shown"] = anchors_rows  # edits included: what a click adds to
+    link.keep("anchor", [(round(r["x"]), round(r["y"]), float(r["thickness (nm)"])) for r in anchors_rows
+                         if all(r.get(c) is not None for c in ("x", "y", "thickness (nm)"))])
     ref_default = settings.get("reference")
+    link.attach("use_reference", f"useref::{photo_name}")
     use_ref = st.checkbox("Reference region of known thickness (sets the camera's gains; drag a box on the photo)",
-                          ref_default is not None, key=f"useref::{photo_name}")
+                          ref_default is not None, key=f"useref::{photo_name}", persist_state="session")
+    link.attach("reference", tuple(f"ref{i}::{photo_name}" for i in range(5)), fits=lambda r: on_photo(r[:4]),
+                misfit=f"outside the photo ({W} × {H} px)", convert=lambda r: tuple(float(v) for v in r))
     reference = None
     if use_ref:
         r = ref_default or [0, 0, min(20, W - 1), min(20, H - 1), 0.0]
@@ -109,7 +153,13 @@ with st.sidebar:
         labels = ["x0", "y0", "x1", "y1", "nm"]
         for i in range(5):
             st.session_state.setdefault(f"ref{i}::{photo_name}", float(r[i]))
-        reference = [cols[i].number_input(labels[i], key=f"ref{i}::{photo_name}") for i in range(5)]
+        reference = [cols[i].number_input(labels[i], key=f"ref{i}::{photo_name}", persist_state="session")
+                     for i in range(5)]
+# The profile line is drawn with the result; a link's line waits in session state until then.
+link.attach("line", tuple(f"line{i}::{photo_name}" for i in range(4)), fits=on_photo,
+            misfit=f"outside the photo ({W} × {H} px)")
+link.note("The link holds the settings, not the map: press “Compute the thickness map” after opening it.")
+link.publish()
 
 shown = max(1, int(np.ceil(max(H, W) / 1200)))  # a large photo is shown at up to 1200 px a side
 fig = go.Figure([go.Image(z=np.rint(photo.rgb[::shown, ::shown] * 255).astype(np.uint8), dx=shown, dy=shown,
@@ -130,6 +180,7 @@ st.plotly_chart(fig, width="stretch", on_select="rerun", selection_mode=("points
 st.caption("Click the photo to add an anchor there (drag to zoom in first, double-click to zoom out). To set the "
            "reference region, pick the box-select tool (dotted square, top right) and drag a box.")
 
+st.caption(f"Computing a map shows its progress. {RUN_CANCEL_HINT}")
 if st.button("Compute the thickness map", type="primary", key="photo_run"):
     try:
         anchors = [(int(r["x"]), int(r["y"]), float(r["thickness (nm)"])) for r in anchors_rows
@@ -193,7 +244,8 @@ with tabs[5]:
     st.caption("A line between two pixels (x, y from the top-left); values are the nearest pixel's, so steps "
                "stay steps.")
     c = st.columns(4)
-    ends = [c[i].number_input(label, 0, (W if i % 2 == 0 else H) - 1, value, 1, key=f"line{i}::{photo_name}")
+    ends = [c[i].number_input(label, 0, (W if i % 2 == 0 else H) - 1, value, 1, key=f"line{i}::{photo_name}",
+                              persist_state="session")
             for i, (label, value) in enumerate((("x0", 0), ("y0", H // 2), ("x1", W - 1), ("y1", H // 2)))]
     distance, values = line_profile(result.thickness_nm, *ends)
     sig = line_profile(result.sigma_nm, *ends)[1]
@@ -232,4 +284,5 @@ with tabs[6]:
         col.download_button(ext[1:].upper(), blob, stem + ext, key=f"dl{ext}")
     st.caption("TIFF: float32 nm, opens in ImageJ/Fiji with unit and pixel size; CSV: x, y, thickness, σ, flags, "
                "residual; JSON: the provenance record (photo hash, stack, settings, calibration, statistics).")
+link.publish()
 cautions_box()

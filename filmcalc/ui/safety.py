@@ -2,9 +2,10 @@
 
 import streamlit as st
 
-from filmcalc.ui.common import MEASUREMENT_CAUTION
+from filmcalc.ui.common import MEASUREMENT_CAUTION, PageLink
 
 st.title("Cautions")
+PageLink("cautions").publish()
 st.subheader("About the numbers")
 st.info(MEASUREMENT_CAUTION)
 st.markdown(

@@ -1,13 +1,15 @@
 """Spectrum fit page: a measured reflectance spectrum becomes a film thickness with its uncertainty."""
 
 import json
+from pathlib import Path
 
 import streamlit as st
 
 from filmcalc.charts import fit_landscape_figure, spectrum_fit_figure
 from filmcalc.errors import FilmcalcError
+from filmcalc.links import UPLOAD
 from filmcalc.spectra import fit_spectrum, read_spectrum
-from filmcalc.ui.common import DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, stack_picker
+from filmcalc.ui.common import DEMO_DIR, PageLink, cautions_box, choose_demo_stack, load_or_stop, stack_picker
 
 SPECTRA_DIR = DEMO_DIR / "spectra"
 # Demo spectrum → the demo stack it was measured on, and the range to search.
@@ -18,36 +20,59 @@ st.write("Load a reflectance spectrum (wavelength and reflectance, or raw sample
          "stack it was measured on, and get the film's thickness with its 1σ uncertainty, the fit quality and any "
          "other thickness that would explain the data.")
 
-source = st.radio("Spectrum", ["demo spectrum", "my spectrum"], horizontal=True, key="spec_source")
+link = PageLink("spectrum-fit", {"spectrum": {**{Path(n).stem: n for n in DEMOS}, UPLOAD: UPLOAD}})
+if link.fresh:  # a new link chooses the spectrum: a demo by name, or "upload" for the user's own
+    given = link.given().get("spectrum")
+    st.session_state.pop("spec_source", None)
+    st.session_state.pop("spec_demo", None)
+    if given == UPLOAD:
+        st.session_state["spec_source"] = "my spectrum"
+    elif given:
+        st.session_state["spec_source"], st.session_state["spec_demo"] = "demo spectrum", given
+source = st.radio("Spectrum", ["demo spectrum", "my spectrum"], horizontal=True, key="spec_source",
+                  persist_state="session")
 if source == "demo spectrum":
-    name = st.selectbox("Demo spectrum", list(DEMOS), key="spec_demo",
+    name = st.selectbox("Demo spectrum", list(DEMOS), key="spec_demo", persist_state="session",
                         help="Invented samples written by demo_data/make_demo_spectra.py.")
+    link.keep("spectrum", name)
     data = (SPECTRA_DIR / name).read_bytes()
     choose_demo_stack(DEMOS[name][0], f"spec::{name}")
     default_range = DEMOS[name][1]
 else:
+    link.keep("spectrum", UPLOAD)
+    link.note("The spectrum you uploaded is not in the link: whoever opens it must upload the same file.")
     upload = st.file_uploader("Spectrum (CSV or TSV: wavelength in nm, then reflectance or counts)",
                               type=["csv", "tsv", "txt"], key="spec_upload")
     if upload is None:
         st.info("Upload a spectrum, or pick a demo spectrum above.")
+        link.publish()
         cautions_box()
         st.stop()
     data, name, default_range = upload.getvalue(), upload.name, (0, 3000)
 
-text, base_dir, origin = stack_picker()
+text, base_dir, origin = stack_picker(link)
 stack = load_or_stop(text, base_dir, origin)
 
 with st.sidebar:
     st.header("Fit")
     c1, c2 = st.columns(2)
-    lo = c1.number_input("Thinnest (nm)", 0.0, 100000.0, float(default_range[0]), 10.0, key=f"spec_lo::{name}")
-    hi = c2.number_input("Thickest (nm)", 1.0, 100000.0, float(default_range[1]), 10.0, key=f"spec_hi::{name}")
+    link.attach("t_min_nm", f"spec_lo::{name}")
+    lo = c1.number_input("Thinnest (nm)", 0.0, 100000.0, float(default_range[0]), 10.0, key=f"spec_lo::{name}",
+                         persist_state="session")
+    link.attach("t_max_nm", f"spec_hi::{name}")
+    hi = c2.number_input("Thickest (nm)", 1.0, 100000.0, float(default_range[1]), 10.0, key=f"spec_hi::{name}",
+                         persist_state="session")
+    link.attach("scale", "spec_scale")
     scale = st.radio("Reflectance given as", ["auto", "percent", "fraction"], horizontal=True, key="spec_scale",
-                     help="auto: values above 1.5 are read as percent.")
-    what = st.selectbox("Free parameters", ["thickness", "thickness,cauchy"], key="spec_fit",
+                     persist_state="session", help="auto: values above 1.5 are read as percent.")
+    link.attach("fit", "spec_fit")
+    what = st.selectbox("Free parameters", ["thickness", "thickness,cauchy"], key="spec_fit", persist_state="session",
                         help="thickness,cauchy also fits the film's Cauchy coefficients A, B, C.")
+    link.attach("baseline", "spec_baseline")
     baseline = st.selectbox("Baseline", ["none", "offset", "scale+offset"], key="spec_baseline",
+                            persist_state="session",
                             help="Lets the model shift (and scale) to absorb a reference or dark-count error.")
+link.publish()
 
 try:
     spectrum = read_spectrum(data, name=name, scale=scale)
@@ -57,8 +82,11 @@ except FilmcalcError as exc:
 for note in spectrum.notes:
     st.caption(f"Note: {note}.")
 wl = spectrum.wavelength_nm
+link.attach("window_nm", f"spec_window::{name}", fits=lambda w: wl[0] <= w[0] < w[1] <= wl[-1],
+            misfit=f"not within the spectrum's {wl[0]:g}–{wl[-1]:g} nm")
 window = st.slider("Wavelength window (nm)", float(wl[0]), float(wl[-1]), (float(wl[0]), float(wl[-1])), 1.0,
-                   key=f"spec_window::{name}")
+                   key=f"spec_window::{name}", persist_state="session")
+link.publish()
 
 try:
     with st.spinner("Fitting…"):

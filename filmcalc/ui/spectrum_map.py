@@ -1,13 +1,17 @@
 """Map of spectra page: a mapping run of reflectance spectra becomes a thickness map and uniformity figures."""
 
+import hashlib
 import io
+from pathlib import Path
 
 import streamlit as st
 
 from filmcalc.charts import spectrum_map_figure, spectrum_map_figure_image
 from filmcalc.errors import FilmcalcError
+from filmcalc.links import UPLOAD
 from filmcalc.spectra import fit_map, read_spectrum_map
-from filmcalc.ui.common import DEMO_DIR, cautions_box, choose_demo_stack, load_or_stop, stack_picker
+from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_box, choose_demo_stack, load_or_stop,
+                                stack_picker)
 
 DEMOS = {"wafer-map.csv": "oxide-coupon.toml"}
 
@@ -16,39 +20,68 @@ st.write("Load a mapping run (one CSV with columns x, y, wavelength, reflectance
          "wavelength), pick the stack, and get the thickness at every point with the uniformity figures a process "
          "report needs. Positions keep the file's units (mm in the demo).")
 
-source = st.radio("Mapping run", ["demo run", "my run"], horizontal=True, key="smap_source")
+link = PageLink("spectrum-map", {"run": {**{Path(n).stem: n for n in DEMOS}, UPLOAD: UPLOAD}})
+if link.fresh:  # a new link chooses the run: a demo by name, or "upload" for the user's own
+    given = link.given().get("run")
+    st.session_state.pop("smap_source", None)
+    st.session_state.pop("smap_demo", None)
+    if given == UPLOAD:
+        st.session_state["smap_source"] = "my run"
+    elif given:
+        st.session_state["smap_source"], st.session_state["smap_demo"] = "demo run", given
+source = st.radio("Mapping run", ["demo run", "my run"], horizontal=True, key="smap_source", persist_state="session")
 if source == "demo run":
-    name = st.selectbox("Demo run", list(DEMOS), key="smap_demo",
+    name = st.selectbox("Demo run", list(DEMOS), key="smap_demo", persist_state="session",
                         help="An invented 150 mm wafer written by demo_data/make_demo_spectra.py.")
+    link.keep("run", name)
     data = (DEMO_DIR / "spectra" / name).read_bytes()
     choose_demo_stack(DEMOS[name], f"smap::{name}")
 else:
+    link.keep("run", UPLOAD)
+    link.note("The mapping run you uploaded is not in the link: whoever opens it must upload the same file.")
     upload = st.file_uploader("Mapping run (CSV: x, y, wavelength_nm, reflectance)", type=["csv", "tsv", "txt"],
                               key="smap_upload")
     if upload is None:
         st.info("Upload a mapping run, or pick the demo run above.")
+        link.publish()
         cautions_box()
         st.stop()
     data, name = upload.getvalue(), upload.name
 
-text, base_dir, origin = stack_picker()
+text, base_dir, origin = stack_picker(link)
 stack = load_or_stop(text, base_dir, origin)
 with st.sidebar:
     st.header("Fit")
     c1, c2 = st.columns(2)
-    lo = c1.number_input("Thinnest (nm)", 0.0, 100000.0, 0.0, 10.0, key="smap_lo")
-    hi = c2.number_input("Thickest (nm)", 1.0, 100000.0, 3000.0, 10.0, key="smap_hi")
-    baseline = st.selectbox("Baseline", ["none", "offset", "scale+offset"], key="smap_baseline")
-    unit = st.text_input("Position unit", "mm", key="smap_unit")
+    link.attach("t_min_nm", "smap_lo")
+    lo = c1.number_input("Thinnest (nm)", 0.0, 100000.0, 0.0, 10.0, key="smap_lo", persist_state="session")
+    link.attach("t_max_nm", "smap_hi")
+    hi = c2.number_input("Thickest (nm)", 1.0, 100000.0, 3000.0, 10.0, key="smap_hi", persist_state="session")
+    link.attach("baseline", "smap_baseline")
+    baseline = st.selectbox("Baseline", ["none", "offset", "scale+offset"], key="smap_baseline",
+                            persist_state="session")
+    link.attach("position_unit", "smap_unit")
+    unit = st.text_input("Position unit", "mm", key="smap_unit", max_chars=12, persist_state="session")
+link.publish()
 
-try:
-    smap = read_spectrum_map(data, name=name)
-    bar = st.progress(0.0, "starting")
-    result = fit_map(smap, stack, (lo, hi), baseline=baseline, progress=lambda f, m: bar.progress(min(f, 1.0), m))
-    bar.empty()
-except FilmcalcError as exc:
-    st.error(str(exc))
-    st.stop()
+# The fit of a run is kept for this session, keyed by everything that defines it, so changing only the
+# position unit or coming back to the page does not fit again.
+run_key = (hashlib.sha256(data).hexdigest(), name, text, base_dir, lo, hi, baseline)
+stored = st.session_state.get("smap_result")
+if stored and stored[0] == run_key:
+    smap, result = stored[1], stored[2]
+else:
+    st.caption(f"Fitting every spectrum shows its progress. {RUN_CANCEL_HINT}")
+    try:
+        smap = read_spectrum_map(data, name=name)
+        bar = st.progress(0.0, "starting")
+        result = fit_map(smap, stack, (lo, hi), baseline=baseline,
+                         progress=lambda f, m: bar.progress(min(f, 1.0), m))
+        bar.empty()
+    except FilmcalcError as exc:
+        st.error(str(exc))
+        st.stop()
+    st.session_state["smap_result"] = (run_key, smap, result)
 for note in smap.notes:
     st.caption(f"Note: {note}.")
 for w in result.warnings:

@@ -5,7 +5,7 @@ import streamlit as st
 from filmcalc.errors import FilmcalcError
 from filmcalc.materials import BUILT_IN, spec_from_text
 from filmcalc.stack import POLARISATIONS, dumps_stack, loads_stack, stack_from_dict, stack_to_dict
-from filmcalc.ui.common import BUILDER_CHOICE, cautions_box, load_or_stop, stack_picker
+from filmcalc.ui.common import BUILDER_CHOICE, PageLink, cautions_box, load_or_stop, stack_picker
 
 LIGHTS = ["D65", "D50", "A", "F2", "F7", "F11", "LED-B3", "LED-B4", "blackbody:3200", "sodium", "mercury",
           "mercury-green", "hene", "hene-green"]
@@ -15,12 +15,19 @@ st.write("Describe the sample from the side the light comes from down to the sub
          "names (see the list below), a constant index such as `n=1.47` or `n=2.5, k=3.4`, or Cauchy "
          "coefficients `cauchy=A, B, C` (λ in µm). Mark one thin layer as the film to measure.")
 
-text, base_dir, origin = stack_picker()
+link = PageLink("stack-builder")
+text, base_dir, origin = stack_picker(link)
+link.note("Your edits are not in the link: the link opens the sample you started from. To share your stack, "
+          "download its file below.")
+link.publish()
 start = load_or_stop(text, base_dir, origin, need_film=False)
 data = stack_to_dict(start)
 
 
-def as_text(spec):
+def as_text(spec, material):
+    """A material as the builder's text box shows it (a built-in by its name, not its expanded formula)."""
+    if isinstance(spec, dict) and "name" not in spec and material.name in BUILT_IN:
+        return material.name
     if isinstance(spec, dict) and set(spec) <= {"n", "k"}:
         return ", ".join(f"{k}={v:g}" for k, v in spec.items())
     if isinstance(spec, dict) and set(spec) == {"cauchy"}:
@@ -31,14 +38,14 @@ def as_text(spec):
 key = f"builder::{origin}"
 name = st.text_input("Name", data["name"], key=key + "::name")
 c1, c2 = st.columns(2)
-ambient = c1.text_input("Ambient (light arrives through it)", as_text(data["ambient"]["material"]),
+ambient = c1.text_input("Ambient (light arrives through it)", as_text(data["ambient"]["material"], start.ambient),
                         key=key + "::ambient")
-substrate = c2.text_input("Substrate", as_text(data["substrate"]["material"]), key=key + "::substrate")
+substrate = c2.text_input("Substrate", as_text(data["substrate"]["material"], start.substrate), key=key + "::substrate")
 
 st.subheader("Layers, top to bottom")
-rows = [{"material": as_text(layer["material"]), "thickness (nm)": layer["thickness_nm"],
+rows = [{"material": as_text(layer["material"], built.material), "thickness (nm)": layer["thickness_nm"],
          "thick (incoherent)": not layer.get("coherent", True), "film to measure": layer.get("unknown", False)}
-        for layer in data["layers"]]
+        for layer, built in zip(data["layers"], start.layers)]
 edited = st.data_editor(
     rows, num_rows="dynamic", width="stretch", key=key + "::layers",
     column_config={
