@@ -113,6 +113,8 @@ def parse_range(text, what, count=3):
     if len(values) != count:
         form = "A:B:STEP" if count == 3 else "A:B"
         raise FilmcalcError(f"{what} must be written {form} (got {text!r}).")
+    if not all(np.isfinite(values)):
+        raise FilmcalcError(f"{what}: every number must be finite (got {text!r}).")
     return values
 
 
@@ -121,6 +123,8 @@ def wavelength_grid(text):
     lo, hi, step = parse_range(text, "--wavelengths")
     if not (0 < lo < hi and step > 0):
         raise FilmcalcError(f"--wavelengths needs 0 < A < B and STEP > 0 (got {text!r}).")
+    if (hi - lo) / step > 100_000:
+        raise FilmcalcError(f"--wavelengths {text!r} gives over 100 000 wavelengths; use a larger STEP.")
     return np.arange(lo, hi + step / 2, step)
 
 
@@ -291,6 +295,8 @@ def _numbers(text, count, what):
         values = []
     if len(values) != count:
         raise FilmcalcError(f"{what} needs {count} comma-separated numbers (got {text!r}).")
+    if not all(np.isfinite(values)) or max(abs(v) for v in values) > 1e9:
+        raise FilmcalcError(f"{what}: every number must be finite and below 10⁹ (got {text!r}).")
     return values
 
 

@@ -166,11 +166,8 @@ def light_spectrum(source, wavelength_nm, base_dir=None):
         path = Path(source)
         if not path.is_absolute() and base_dir is not None:
             path = Path(base_dir) / path
-        try:
-            data = np.loadtxt(path, delimiter=",", skiprows=1, ndmin=2)
-        except (OSError, ValueError) as exc:
-            raise FilmcalcError(f"Light file {str(path)!r} could not be read as wavelength_nm,power: {exc}") from None
-        if data.shape[1] < 2 or np.any(np.diff(data[:, 0]) <= 0) or np.any(data[:, 1] < 0):
+        data = _numeric_csv(path, "Light file", "wavelength_nm,power", 2)
+        if np.any(np.diff(data[:, 0]) <= 0) or np.any(data[:, 1] < 0):
             raise FilmcalcError(f"Light file {str(path)!r}: need increasing wavelength_nm and power ≥ 0.")
         if wl.min() < data[0, 0] or wl.max() > data[-1, 0]:
             raise FilmcalcError(f"Light file {str(path)!r} covers {data[0, 0]:g}–{data[-1, 0]:g} nm only.")
@@ -481,7 +478,7 @@ def parse_colour(text, white_XYZ):
         numbers = np.array([float(v) for v in values.split(",")])
         if numbers.size == 3 and kind == "srgb" and np.all((numbers >= 0) & (numbers <= 1)):
             return XYZ_to_Lab(srgb_to_XYZ(numbers, white_XYZ), white_XYZ)
-        if numbers.size == 3 and kind == "lab":
+        if numbers.size == 3 and kind == "lab" and np.all(np.isfinite(numbers)):
             return numbers
     except ValueError:
         pass
@@ -505,17 +502,37 @@ class CameraResponse:
     name: str = "camera"
 
 
+def _first_line(exc):
+    return (str(exc).strip().splitlines() or [type(exc).__name__])[0][:120]
+
+
+def _numeric_csv(path, what, form, columns):
+    """The rows of a comma-separated file of numbers after a header line: (N, ``columns``) floats, all
+    finite, or a FilmcalcError saying what is wrong."""
+    try:
+        data = np.loadtxt(path, delimiter=",", skiprows=1, ndmin=2, encoding="utf-8-sig")
+    except (OSError, ValueError) as exc:  # includes UnicodeDecodeError and rows of uneven length
+        raise FilmcalcError(f"{what} {str(path)!r} could not be read as {form} ({_first_line(exc)}).") from None
+    if data.shape[0] == 0 or data.shape[1] < columns:
+        raise FilmcalcError(f"{what} {str(path)!r}: every row needs {columns} numbers ({form}).")
+    data = data[:, :columns]
+    if not np.all(np.isfinite(data)):
+        raise FilmcalcError(f"{what} {str(path)!r}: every value must be a finite number (no nan or inf).")
+    return data
+
+
 def load_camera_csv(path):
     """Read ``wavelength_nm,red,green,blue`` sensitivities into a :class:`CameraResponse`."""
     path = Path(path)
     try:
         with path.open(encoding="utf-8-sig") as fh:
             header = [h.strip().lower() for h in fh.readline().split(",")]
-        data = np.loadtxt(path, delimiter=",", skiprows=1, ndmin=2)
-    except (OSError, ValueError) as exc:
-        raise FilmcalcError(f"Camera file {str(path)!r} could not be read: {exc}") from None
+    except (OSError, ValueError) as exc:  # UnicodeDecodeError is a ValueError
+        raise FilmcalcError(f"Camera file {str(path)!r} could not be read ({_first_line(exc)}); it must be "
+                            "UTF-8 text.") from None
     if header[:4] != ["wavelength_nm", "red", "green", "blue"]:
         raise FilmcalcError(f"Camera file {str(path)!r}: the header must be wavelength_nm,red,green,blue.")
+    data = _numeric_csv(path, "Camera file", "wavelength_nm,red,green,blue", 4)
     if data.shape[0] < 2 or np.any(np.diff(data[:, 0]) <= 0) or np.any(data[:, 1:4] < 0):
         raise FilmcalcError(f"Camera file {str(path)!r}: need increasing wavelengths and sensitivities ≥ 0.")
     return CameraResponse(data[:, 0], data[:, 1:4], path.stem)

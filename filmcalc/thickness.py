@@ -187,8 +187,8 @@ class ColourLookup:
 def build_lookup(stack, range_nm=(0.0, 1500.0), step_nm=0.5, angle_deg=None, observer="2"):
     """The colour path of the stack's film, every ``step_nm`` over ``range_nm``."""
     lo, hi = float(range_nm[0]), float(range_nm[1])
-    if not (0 <= lo < hi) or not (0 < step_nm <= 0.5):
-        raise FilmcalcError("The thickness range needs 0 ≤ min < max, and the lookup step must be ≤ 0.5 nm.")
+    if not (0 <= lo < hi < 1e6) or not (0 < step_nm <= 0.5):
+        raise FilmcalcError("The thickness range needs 0 ≤ min < max < 1 mm, and the lookup step must be ≤ 0.5 nm.")
     thickness = np.arange(lo, hi + step_nm / 2, step_nm)
     colours = film_colours(stack, thickness, None if angle_deg is None else [angle_deg], observer=observer)
     linear = (colours.XYZ[0] / 100.0) @ _adaptation_matrix(colours.white_XYZ).T
