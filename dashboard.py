@@ -27,6 +27,7 @@ pages = [
     st.Page("filmcalc/ui/fringe_analysis.py", title="Fringes", icon=":material/waves:", url_path="fringes"),
     st.Page("filmcalc/ui/film_sequence.py", title="Film over time", icon=":material/movie:",
             url_path="film-over-time"),
+    st.Page("filmcalc/ui/saved_runs.py", title="Saved runs", icon=":material/bookmarks:", url_path="saved-runs"),
     st.Page("filmcalc/ui/stack_builder.py", title="Stack builder", icon=":material/layers:",
             url_path="stack-builder"),
     st.Page("filmcalc/ui/safety.py", title="Cautions", icon=":material/health_and_safety:", url_path="cautions"),

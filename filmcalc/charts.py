@@ -16,6 +16,8 @@ chromaticity_figure
     The colour path in the CIE xy or u′v′ diagram, labelled with thickness.
 spectrum_figure
     Reflectance spectrum (s, p, unpolarised) at one thickness and angle.
+spectrum_fit_figure, fit_landscape_figure, fit_overlay_figure
+    A fitted spectrum with its residuals, the goodness of fit over thickness, several fits on one plot.
 calibration_figure, map_figure
     Diagnostics and results of the photo inversion.
 thinning_figure, kymograph_figure
@@ -49,7 +51,8 @@ from .errors import FilmcalcError
 
 __all__ = ["THICKNESS_UNITS", "thickness_unit", "colour_table", "colour_strip_figure", "thickness_angle_figure",
            "reflectance_map_figure", "chromaticity_figure", "spectrum_figure", "bench_chart",
-           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure", "thinning_figure", "kymograph_figure", "plus_minus", "history_figure"]
+           "thickness_angle_chart_image", "save_bench_chart", "PAPER_SIZES_IN", "calibration_figure", "map_figure", "thinning_figure", "kymograph_figure", "plus_minus", "history_figure",
+           "fit_overlay_figure"]
 
 THICKNESS_UNITS = {"nm": 1.0, "µm": 1e-3, "Å": 10.0}
 _UNIT_ALIASES = {"nm": "nm", "um": "µm", "µm": "µm", "micron": "µm", "a": "Å", "å": "Å", "angstrom": "Å"}
@@ -285,11 +288,15 @@ def calibration_figure(photo_lab, path_lab_before, path_lab_after, path_thicknes
     return fig
 
 
-def map_figure(values, title, label, colorscale="cividis", zmin=None, zmax=None, pixel_size_um=None):
-    """A map (thickness, uncertainty, residual) as a heatmap with hover readout."""
+def map_figure(values, title, label, colorscale="cividis", zmin=None, zmax=None, pixel_size_um=None, stride=1):
+    """A map (thickness, uncertainty, residual) as a heatmap with hover readout.
+
+    ``stride``: the map holds every stride-th pixel of the original (a large map shown lighter); the axes
+    keep the original pixel coordinates.
+    """
     h, w = np.shape(values)
     unit = "µm" if pixel_size_um else "px"
-    scale = pixel_size_um or 1.0
+    scale = (pixel_size_um or 1.0) * stride
     fig = go.Figure(go.Heatmap(z=values, x=np.arange(w) * scale, y=np.arange(h) * scale, colorscale=colorscale,
                                zmin=zmin, zmax=zmax, colorbar={"title": label},
                                hovertemplate=f"x %{{x:.4g}} {unit}, y %{{y:.4g}} {unit}<br>{label} %{{z:.4g}}"
@@ -377,6 +384,33 @@ def spectrum_fit_figure(fit, title=None):
     return fig
 
 
+def fit_overlay_figure(fits, title=None):
+    """Several fitted spectra on one plot: each one's data (points) and model (line) in one colour, percent.
+
+    Parameters
+    ----------
+    fits : list of (name, wavelength_nm, data, model)
+        Reflectance as fractions; ``name`` labels the legend (e.g. a run id and its thickness).
+    """
+    palette = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd", "#ff7f0e", "#17becf", "#8c564b", "#e377c2",
+               "#7f7f7f", "#bcbd22", "#393b79", "#637939")
+    dashes = ("solid", "dash", "dot", "dashdot")
+    fig = go.Figure()
+    for i, (name, wl, data, model) in enumerate(fits):
+        colour = palette[i % len(palette)]
+        fig.add_trace(go.Scatter(x=wl, y=100 * np.asarray(data, float), mode="markers", name=f"{name}: measured",
+                                 legendgroup=str(i), marker={"size": 4, "color": colour, "opacity": 0.6},
+                                 hovertemplate="λ %{x:.1f} nm<br>R %{y:.2f} %<extra>" + name + "</extra>"))
+        fig.add_trace(go.Scatter(x=wl, y=100 * np.asarray(model, float), mode="lines", name=f"{name}: model",
+                                 legendgroup=str(i), line={"width": 2, "color": colour,
+                                                           "dash": dashes[i % len(dashes)]},
+                                 hovertemplate="λ %{x:.1f} nm<br>model %{y:.2f} %<extra>" + name + "</extra>"))
+    fig.update_layout(title=title, xaxis_title="wavelength (nm)", yaxis_title="reflectance (%)", height=460,
+                      margin={"l": 10, "r": 10, "t": 50 if title else 20, "b": 10},
+                      legend={"orientation": "h", "y": -0.2})
+    return fig
+
+
 def fit_landscape_figure(fit, title=None):
     """Goodness of fit (reduced χ², log scale) over the thickness range, best and other minima marked."""
     fig = go.Figure(go.Scatter(x=fit.landscape_nm, y=fit.landscape_chi2, mode="lines", name="reduced χ²",
@@ -407,20 +441,25 @@ def _contour_grid(x, y, t, size=120):
         return None
 
 
-def spectrum_map_figure(result, unit="mm", title=None):
-    """Thickness at each measured point over an interpolated contour map (plotly)."""
+def spectrum_map_figure(result, unit="mm", title=None, zmin=None, zmax=None):
+    """Thickness at each measured point over an interpolated contour map (plotly).
+
+    ``zmin``, ``zmax``: the colour range in nm (default: the map's own), e.g. one range for maps shown side by side.
+    """
     fig = go.Figure()
     x, y, t = result.x, result.y, result.thickness_nm
     ok = np.isfinite(t)
+    zmin = np.nanmin(t) if zmin is None else zmin
+    zmax = np.nanmax(t) if zmax is None else zmax
     grid = _contour_grid(x[ok], y[ok], t[ok])
     if grid is not None:
         gx, gy, grid = grid
         fig.add_trace(go.Contour(x=gx, y=gy, z=grid, colorscale="cividis", colorbar={"title": "nm"},
                                  contours={"showlabels": True}, hoverinfo="skip", opacity=0.85,
-                                 zmin=np.nanmin(t), zmax=np.nanmax(t)))
+                                 zmin=zmin, zmax=zmax))
     fig.add_trace(go.Scatter(x=x, y=y, mode="markers", name="measured points",
-                             marker={"size": 8, "color": t, "colorscale": "cividis", "cmin": np.nanmin(t),
-                                     "cmax": np.nanmax(t), "line": {"width": 1, "color": "white"},
+                             marker={"size": 8, "color": t, "colorscale": "cividis", "cmin": zmin,
+                                     "cmax": zmax, "line": {"width": 1, "color": "white"},
                                      "symbol": np.where(result.ambiguous, "x", "circle")},
                              customdata=np.column_stack([result.sigma_nm, result.reduced_chi2]),
                              hovertemplate=f"x %{{x:.3g}} {unit}, y %{{y:.3g}} {unit}<br>%{{marker.color:.2f}} ± "

@@ -283,6 +283,8 @@ BASELINE = Choice("baseline", {"none": "none", "offset": "offset", "scale-offset
 _X0Y0X1Y1 = (Number("x0", 0, 100_000, "px", integer=True), Number("y0", 0, 100_000, "px", integer=True),
              Number("x1", 0, 100_000, "px", integer=True), Number("y1", 0, 100_000, "px", integer=True))
 LINE = Numbers("line", _X0Y0X1Y1)
+# A saved run's id, as filmcalc.runs writes and accepts them.
+RUN_ID = r"[A-Za-z0-9][A-Za-z0-9_-]{3,39}"
 
 
 def _range(high):
@@ -382,6 +384,13 @@ PAGES = {
     ),
     "stack-builder": (SAMPLE,),
     "cautions": (),
+    "saved-runs": (
+        Text("run", RUN_ID, "a run id (letters and digits, as the list of runs shows them)", 40),
+        Text("compare", rf"{RUN_ID}(?:,{RUN_ID}){{1,11}}", "2 to 12 run ids separated by commas", 200),
+        Choice("history_by", {"sample": "sample", "tag": "tag"}),
+        Text("history_of", r"[^\x00-\x1f\x7f\ud800-\udfff]*", "a sample or tag name", 200),
+        Text("history_key", r"[A-Za-z0-9_]+(?:\.[A-Za-z0-9_]+){0,5}", "a summary key such as mean_nm", 100),
+    ),
 }
 
 

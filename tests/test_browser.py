@@ -11,7 +11,10 @@ and stops its whole process group afterwards. The tests then
 * open every page at a wide and a narrow window, in the light and the dark
   theme, check that it runs without an exception box and save a screenshot
   of the whole page under ``test-artifacts/browser/`` (gitignored) for a
-  person to look at.
+  person to look at;
+* save a photo map as a run with ``filmcalc map … --save`` into the server's
+  store and open its link, ``/saved-runs?run=ID``, in two separate browser
+  sessions: both show the same result, photo included.
 
 They need Debian's Chromium at /usr/bin/chromium (``make test`` installs it
 with apt when it can; Playwright's own browser download is not used) and skip,
@@ -49,8 +52,8 @@ LAUNCH_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking
 # Every page and its URL path (the dashboard's contract with shared links and bookmarks). The start
 # page is the default page, which Streamlit serves at the root URL whatever its url_path.
 PAGES = {"start": "", **{slug: slug for slug in ("film-spectrum", "colour-charts", "photo-map", "spectrum-fit",
-                                                 "spectrum-map", "fringes", "film-over-time", "stack-builder",
-                                                 "cautions")}}
+                                                 "spectrum-map", "fringes", "film-over-time", "saved-runs",
+                                                 "stack-builder", "cautions")}}
 VIEWPORTS = {"wide": (1280, 800), "narrow": (420, 900)}
 SERVER_START_S = 60       # Streamlit imports numpy, plotly, scipy... on a busy 2-core machine
 PAGE_RUN_S = 90           # the slowest page script on a cold cache (colour charts) takes a few seconds
@@ -125,7 +128,13 @@ def _stop_group(proc, grace_s=10.0):
 
 
 @pytest.fixture(scope="module")
-def dashboard(browser, tmp_path_factory):
+def dashboard_data(tmp_path_factory):
+    """The run store's folder (FILMCALC_DATA) of the dashboard the tests start: this test run's own."""
+    return tmp_path_factory.mktemp("filmcalc-data")
+
+
+@pytest.fixture(scope="module")
+def dashboard(browser, dashboard_data):
     """The dashboard's base URL (http://127.0.0.1:PORT), served by `streamlit run dashboard.py` from this venv."""
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
     port = _free_port()
@@ -135,7 +144,7 @@ def dashboard(browser, tmp_path_factory):
            "--server.fileWatcherType", "none", "--server.runOnSave", "false"]
     # An empty FILMCALC_PASSWORD switches the dashboard's shared password off, whatever the secrets file says;
     # saved runs go to a store of this test run's own, never the user's.
-    env = {**os.environ, "FILMCALC_PASSWORD": "", "FILMCALC_DATA": str(tmp_path_factory.mktemp("filmcalc-data"))}
+    env = {**os.environ, "FILMCALC_PASSWORD": "", "FILMCALC_DATA": str(dashboard_data)}
     env.pop("FILMCALC_DATABASE_URL", None)
     with open(log_path, "wb") as log:
         proc = subprocess.Popen(cmd, cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT,
@@ -389,3 +398,50 @@ def test_every_page_renders(browser, dashboard):
         for context in contexts.values():
             context.close()
     assert not problems, "\n".join(problems)
+
+
+def test_a_run_link_opens_the_same_result_in_a_second_session(browser, dashboard, dashboard_data, tmp_path):
+    """A run saved with `filmcalc map … --save` into the server's store opens from its link in two browser
+    sessions of their own (as for two colleagues): the same numbers, the thickness map and the photo itself."""
+    import contextlib
+    import io
+
+    from filmcalc.cli import main
+
+    photo = DEMO / "photos" / "oxide-coupon-steps.png"
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        status = main(["map", str(photo), str(DEMO / "oxide-coupon.toml"), "--out", str(tmp_path / "coupon.npy"),
+                       "--reference", "2,2,40,197,0", "--anchor", "10,100,0", "--trend", "right", "--json", "--save",
+                       "--sample", "coupon 3", "--tag", "weekly", "--saved-by", "A. Lund",
+                       "--data-dir", str(dashboard_data)])
+    assert status == 0, err.getvalue()
+    record = json.loads(out.getvalue())
+    run_id, mean_nm = record["saved_run"], record["statistics"]["mean_nm"]
+
+    seen = []
+    for session, theme in ((1, "light"), (2, "dark")):  # two contexts: two sessions sharing nothing
+        context = browser.new_context(viewport={"width": 1280, "height": 800}, color_scheme=theme)
+        try:
+            page = open_page(context, f"{dashboard}/saved-runs?run={run_id}")
+            assert not page_not_found(page), "/saved-runs is not a page of the dashboard"
+            assert page.locator(EXCEPTION).count() == 0, page.locator(EXCEPTION).first.inner_text()
+            page.locator(".js-plotly-plot").first.wait_for(timeout=PAGE_RUN_S * 1000)
+            settle(page)
+            screenshot_whole_page(page, ARTIFACTS / f"saved-run-link_session{session}_1280x800_{theme}.png",
+                                  (1280, 800))
+            values = page.locator('[data-testid="stMetric"]').evaluate_all(
+                "boxes => boxes.map(b => [b.querySelector('[data-testid=\"stMetricLabel\"]').innerText.trim(), "
+                "b.querySelector('[data-testid=\"stMetricValue\"]').innerText.trim()])")
+            metrics = dict(values)
+            assert metrics.get("mean thickness") == f"{mean_nm:.1f} nm", metrics
+            # the photo, read back from the store: a loaded image of the photo's own size
+            widths = page.locator('[data-testid="stImage"] img').evaluate_all(
+                "imgs => imgs.map(i => i.complete ? i.naturalWidth : 0)")
+            assert 300 in widths, widths
+            assert page.get_by_text("oxide-coupon-steps.png, 300 × 200 px", exact=False).count() >= 1
+            assert f"run={run_id}" in page.url  # the address bar keeps the link
+            seen.append(values)
+        finally:
+            context.close()
+    assert seen[0] == seen[1]  # the same result in both sessions

@@ -208,7 +208,7 @@ PAGE_FILES = {"film-spectrum": "filmcalc/ui/film_spectrum.py", "colour-charts": 
               "photo-map": "filmcalc/ui/photo_map.py", "spectrum-fit": "filmcalc/ui/spectrum_fit.py",
               "spectrum-map": "filmcalc/ui/spectrum_map.py", "fringes": "filmcalc/ui/fringe_analysis.py",
               "film-over-time": "filmcalc/ui/film_sequence.py", "stack-builder": "filmcalc/ui/stack_builder.py",
-              "cautions": "filmcalc/ui/safety.py"}
+              "cautions": "filmcalc/ui/safety.py", "saved-runs": "filmcalc/ui/saved_runs.py"}
 SAMPLE_NAMES = {"oxide-coupon": "thermal oxide coupon on silicon", "soap-film-loop": "soap film in a wire loop"}
 
 

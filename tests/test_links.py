@@ -44,20 +44,23 @@ def test_the_shared_film_spectrum_link():
 
 def test_every_page_has_its_url_path():
     assert set(links.PAGES) == {"start", "film-spectrum", "colour-charts", "photo-map", "spectrum-fit",
-                                "spectrum-map", "fringes", "film-over-time", "stack-builder", "cautions"}
+                                "spectrum-map", "fringes", "film-over-time", "stack-builder", "cautions",
+                                "saved-runs"}
     for page, params in links.PAGES.items():
         names = [p.name for p in params]
         assert len(names) == len(set(names)), page  # one meaning per name on a page
-        if params and page not in ("start", "cautions"):
+        if params and page not in ("start", "cautions", "saved-runs"):  # a saved run carries its own stack
             assert "sample" in names, page  # the stack is called `sample` on every page that has one
 
 
 def test_shared_parameters_mean_the_same_everywhere():
     """A name used on several pages has one kind and one range (a link is readable across pages)."""
     seen = {}
-    for params in links.PAGES.values():
+    for page, params in links.PAGES.items():
         for p in params:
             if p.name in ("anchor", "reference", "line", "photo"):  # per page by design: pixels of different inputs
+                continue
+            if p.name == "run" and page == "saved-runs":  # a saved run's id there; a demo mapping run elsewhere
                 continue
             seen.setdefault(p.name, set()).add(type(p).__name__)
     assert all(len(kinds) == 1 for kinds in seen.values()), seen
@@ -163,6 +166,37 @@ def test_every_demo_scenario_is_a_clean_link():
         found = decode(scenario.page, scenario.query)
         assert found.ignored == [], (scenario.title, found.ignored)
         assert set(found.values) == set(scenario.query)
+
+
+def test_a_link_to_a_saved_run():
+    """/saved-runs?run=ID opens a run; the ids are those the run store writes and accepts."""
+    from filmcalc import runs
+
+    assert links.RUN_ID == runs._RUN_ID.pattern
+    assert decode("saved-runs", {"run": "3fa9c01b2d7e"}).values == {"run": "3fa9c01b2d7e"}
+    assert links.query_string(links.encode("saved-runs", {"run": "3fa9c01b2d7e"})) == "run=3fa9c01b2d7e"
+    for bad in ("../../etc/passwd", "3fa9 c01b", "abc", "-3fa9c01b2d7e", "3fa9c01b2d7e\x00"):
+        found = decode("saved-runs", {"run": bad})
+        assert found.values == {} and "not a run id" in found.ignored[0], bad
+    assert "longer than 40 characters" in decode("saved-runs", {"run": "x" * 41}).ignored[0]
+    assert "run: given 2 times" in decode("saved-runs", {"run": ["3fa9c01b2d7e", "0a1b2c3d4e5f"]}).ignored[0]
+
+
+def test_a_link_to_compared_runs_and_a_sample_history():
+    found = decode("saved-runs", {"compare": "3fa9c01b2d7e,0a1b2c3d4e5f", "history_by": "tag",
+                                  "history_of": "anneal-B", "history_key": "statistics.mean_nm"})
+    assert found.ignored == []
+    assert found.values == {"compare": "3fa9c01b2d7e,0a1b2c3d4e5f", "history_by": "tag", "history_of": "anneal-B",
+                            "history_key": "statistics.mean_nm"}
+    assert decode("saved-runs", {"history_of": "Wafer 7 – après recuit"}).values["history_of"] == \
+        "Wafer 7 – après recuit"  # sample names are free text
+    ignored = " | ".join(decode("saved-runs", {"compare": "3fa9c01b2d7e", "history_by": "person",
+                                               "history_of": "coupon\n3", "history_key": "mean nm"}).ignored)
+    assert "compare = 3fa9c01b2d7e: not 2 to 12 run ids" in ignored  # one run is not a comparison
+    assert "history_by = person: not one of sample, tag" in ignored
+    assert "history_of = 'coupon\\n3': not a sample or tag name" in ignored
+    assert "history_key = mean nm: not a summary key" in ignored
+    assert decode("saved-runs", {"compare": ",".join(["3fa9c01b2d7e"] * 13)}).values == {}  # at most 12
 
 
 # --------------------------------------------------------------------------- properties

@@ -1,5 +1,7 @@
 """Colour charts page: what the film looks like over thickness and angle, and back."""
 
+import json
+
 import numpy as np
 import streamlit as st
 
@@ -11,7 +13,7 @@ from filmcalc.errors import FilmcalcError
 from filmcalc.optics import stack_reflectance
 from filmcalc.stack import POLARISATIONS
 from filmcalc.ui.common import (PageLink, cached_bench_chart, cached_colours, cached_reflectance_map, cautions_box,
-                                load_or_stop, stack_picker)
+                                load_or_stop, save_run_panel, stack_file_name, stack_picker)
 
 st.title("Colour charts")
 st.write("The film's colour under the stack's light for every thickness and angle, a chart to print for the "
@@ -142,6 +144,21 @@ with tabs[5]:
                        f"within tolerance from ({unit})": round(c["from_nm"] * name_f, 4),
                        f"to ({unit})": round(c["to_nm"] * name_f, 4)} for c in found],
                      hide_index=True, width="stretch")
+    if found is not None:
+        # Saved as `filmcalc match … --save` saves it (the same output name), so either opens the other's runs.
+        described = typed or (f"the chart's swatch at {swatch:g} nm" if swatch is not None else picked)
+        found_plain = [{k: (v.item() if hasattr(v, "item") else v) for k, v in c.items()} for c in found]
+        save_run_panel(
+            "match", inputs={"stack": (stack_file_name(origin), text)},
+            outputs={"candidates.json": json.dumps(found_plain, indent=1, default=str)},
+            settings={"command": "match", "colour": described, "range": f"0:{t_max:g}", "tolerance": tolerance,
+                      "resolution": float(t_max) / (int(t_points) - 1), "angle": view_angle, "observer": observer,
+                      "exposure": float(colours.exposure), "polarisation": polarisation, "na": float(na)},
+            summary={"stack": stack.name, "colour": described, "CIELAB": [round(float(v), 3) for v in target],
+                     "tolerance": tolerance, "range_nm": [0.0, float(t_max)], "angle_deg": float(view_angle),
+                     "candidates": len(found), "best_thickness_nm": found_plain[0]["thickness_nm"] if found else None,
+                     "best_delta_E": found_plain[0]["delta_E"] if found else None},
+            link=link, key="match")
 with tabs[6]:
     st.write("Swatches for this stack, light and angle, with a title block, ready to print. Printed colours "
              "depend on the printer and on the light the chart is viewed under.")
@@ -165,5 +182,19 @@ with tabs[6]:
         d1.download_button("Download PDF", files["pdf"], "filmcalc-chart.pdf", "application/pdf")
         d2.download_button("Download PNG", files["png"], "filmcalc-chart.png", "image/png")
         d3.download_button("Download CSV", files["csv"], "filmcalc-chart.csv", "text/csv")
+        # Saved as `filmcalc chart … --save` saves it (the same output names), so either opens the other's runs.
+        swatch_nm = files["arrays"]["thickness_nm.npy"]
+        save_run_panel(
+            "chart", inputs={"stack": (stack_file_name(origin), text)},
+            outputs={"chart.pdf": files["pdf"], "chart.png": files["png"], "colours.csv": files["csv"],
+                     **files["arrays"]},
+            settings={"command": "chart", "from_nm": 0.0, "to_nm": float(top), "step": float(step), "angles": None,
+                      "unit": unit, "paper": paper, "exposure": float(colours.exposure), "observer": observer,
+                      "angle": float(view_angle), "polarisation": polarisation, "na": float(na)},
+            summary={"stack": stack.name, "from_nm": float(swatch_nm[0]), "to_nm": float(swatch_nm[-1]),
+                     "step_nm": float(step), "thicknesses": int(swatch_nm.size), "angles": 1, "light": files["light"],
+                     "observer": files["observer"], "exposure": files["exposure"],
+                     "out_of_gamut_fraction": files["out_of_gamut_fraction"]},
+            link=link, key="chart")
 link.publish()
 cautions_box()

@@ -1,8 +1,12 @@
-"""Helpers shared by the dashboard pages: demo files, shareable links, cached computations, cautions."""
+"""Helpers shared by the dashboard pages: demo files, shareable links, cached computations, saved runs, cautions."""
 
 from __future__ import annotations
 
+import hashlib
+import json
+import os
 from pathlib import Path
+from urllib.parse import urlsplit, urlunsplit
 
 import numpy as np
 import streamlit as st
@@ -11,6 +15,7 @@ from filmcalc import links
 from filmcalc.appearance import film_colours
 from filmcalc.errors import FilmcalcError
 from filmcalc.optics import reflectance_sweep, stack_reflectance
+from filmcalc.runs import DATABASE_URL_ENV, RunStore, resolve_data_dir, safe_name, validate_labels
 from filmcalc.stack import load_stack, loads_stack
 
 DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
@@ -204,6 +209,10 @@ class PageLink:
         current.update(self._kept)
         return current
 
+    def address(self):
+        """The link to this view as the page currently is (what :meth:`publish` shows)."""
+        return page_address(self.page, links.query_string(links.encode(self.page, self.values(), self.options)))
+
     def publish(self):
         """Write the current settings into the address bar and show the link to copy.
 
@@ -238,6 +247,22 @@ def page_address(page, query):
         host = st.context.headers.get("Host") if st.context.headers else None
         base = f"http://{host}/{page}" if host else f"/{page}"
     return base.rstrip("/") + ("?" + query if query else "")
+
+
+def address_of(page, query=""):
+    """The full address of another page of the dashboard (``page`` is its URL path) with ``query``."""
+    here = st.context.url
+    if here:
+        parts = urlsplit(here)
+        path = parts.path.rstrip("/")
+        head, _, last = path.rpartition("/")
+        if last in links.PAGES:  # the page this session is on; the default page is served at the root
+            path = head
+        base = urlunsplit((parts.scheme, parts.netloc, f"{path}/{page}", "", ""))
+    else:
+        host = st.context.headers.get("Host") if st.context.headers else None
+        base = f"http://{host}/{page}" if host else f"/{page}"
+    return base + ("?" + query if query else "")
 
 
 def choose_demo_stack(stack_file, marker):
@@ -309,7 +334,8 @@ def cached_reflectance_map(text, base_dir, thickness_range, angle_deg, na):
 
 @st.cache_data(show_spinner=False, max_entries=8)
 def cached_bench_chart(text, base_dir, step_nm, top_nm, angle_deg, observer, exposure, polarisation, na, unit, paper):
-    """The printable chart (PNG and PDF bytes) and its colour table (CSV text), cached by every input.
+    """The printable chart (PNG and PDF bytes), its colour table (CSV text) and the swatches' colours as arrays
+    (``arrays``: the names ``filmcalc chart --save`` stores), cached by every input.
 
     Swatches every ``step_nm`` from 0 to ``top_nm`` (nm) at ``angle_deg`` (°), with the chart's exposure.
     """
@@ -324,7 +350,10 @@ def cached_bench_chart(text, base_dir, step_nm, top_nm, angle_deg, observer, exp
     swatches = film_colours(stack, thickness, [angle_deg], observer=observer, exposure=exposure,
                             polarisation=polarisation, numerical_aperture=na)
     fig = bench_chart(swatches, stack, unit, paper)
-    files = {}
+    files = {"arrays": {"thickness_nm.npy": swatches.thickness_nm, "angle_deg.npy": swatches.angle_deg,
+                        "srgb.npy": swatches.srgb, "Lab.npy": swatches.Lab, "XYZ.npy": swatches.XYZ},
+             "light": swatches.source, "observer": swatches.observer, "exposure": float(swatches.exposure),
+             "out_of_gamut_fraction": float(np.mean(swatches.out_of_gamut))}
     with tempfile.TemporaryDirectory() as tmp:
         for ext in ("png", "pdf"):
             path = Path(tmp) / f"chart.{ext}"
@@ -372,3 +401,142 @@ def picked_rectangle(selection, width, height):
     x0, x1 = (int(np.clip(round(v), 0, width - 1)) for v in (min(xs), max(xs)))
     y0, y1 = (int(np.clip(round(v), 0, height - 1)) for v in (min(ys), max(ys)))
     return x0, y0, x1, y1
+
+
+# --------------------------------------------------------------------------- saved runs
+
+@st.cache_resource(show_spinner=False)
+def _open_store(data_dir, database_url):
+    return RunStore(data_dir, database_url)
+
+
+def run_store():
+    """The run store this dashboard process uses: ``FILMCALC_DATA`` (or the per-user data folder) and
+    ``FILMCALC_DATABASE_URL`` when set, as the ``filmcalc`` command finds it. One per process and store.
+
+    Raises
+    ------
+    FilmcalcError
+        A database URL that cannot be used.
+    """
+    return _open_store(str(resolve_data_dir()), os.environ.get(DATABASE_URL_ENV) or None)
+
+
+def stack_file_name(origin):
+    """A stored name for the stack file a page used (its own file name, else ``stack.toml``)."""
+    return safe_name(origin) if str(origin).lower().endswith(".toml") else "stack.toml"
+
+
+def stored_inputs(roles):
+    """A run's input files and which stored name plays which part, as ``filmcalc … --save`` stores them.
+
+    Parameters
+    ----------
+    roles : dict
+        Role (``photo``, ``stack``, ``spectrum``, ``input``…) → ``(file name, content)``, or
+        ``(folder name, [(file name, content), ...])`` for a folder of frames; content is bytes, text
+        or a path. None values are skipped.
+
+    Returns
+    -------
+    files, names : dict, dict
+        Stored name → content (for :meth:`RunStore.save`), and role → stored name (a folder's files
+        are stored as ``FOLDER/NAME``, and the role names the folder).
+    """
+    files, names = {}, {}
+
+    def unique(name, taken):
+        if name not in taken:
+            return name
+        stem, dot, suffix = name.rpartition(".")
+        stem, suffix = (stem, "." + suffix) if dot and stem else (name, "")
+        k = 2
+        while f"{stem}-{k}{suffix}" in taken:
+            k += 1
+        return f"{stem}-{k}{suffix}"
+
+    for role, value in roles.items():
+        if value is None:
+            continue
+        name, content = value
+        if isinstance(content, list):
+            prefix = unique(safe_name(name, role), {n.split("/")[0] for n in files})
+            for member, data in content:
+                files[unique(f"{prefix}/{safe_name(member)}", files)] = data
+            names[role] = prefix
+        else:
+            stored = unique(safe_name(name, role), files)
+            files[stored] = Path(content) if isinstance(content, os.PathLike) else content
+            names[role] = stored
+    return files, names
+
+
+def _result_token(kind, settings, summary):
+    """A fingerprint of a result (its settings and summary numbers, timings aside)."""
+    numbers = {k: v for k, v in (summary or {}).items() if k != "seconds"}
+    text = json.dumps([kind, settings, numbers], sort_keys=True, default=str)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def save_run_panel(kind, *, inputs, outputs, settings, summary, provenance=None, link=None, key=None):
+    """“Save as a run”: an expander under a result with the sample, tags, note and name typed in.
+
+    The run holds what ``filmcalc … --save`` would: the input files (demo inputs too, so a link to the
+    run works without an upload), the settings, the outputs under the command's names, the summary
+    numbers and the provenance. After saving, the run's id and its link (``/saved-runs?run=ID``) are shown.
+
+    Parameters
+    ----------
+    kind : str
+        A kind of :data:`filmcalc.runs.KINDS`.
+    inputs : dict
+        Role → (file name, content), see :func:`stored_inputs`.
+    outputs : dict
+        Stored name → array, bytes, text or path, as the command names them.
+    settings, summary, provenance : dict
+        As the command stores them; ``settings["inputs"]`` (role → stored name) is added here, and
+        the page's link to ``provenance["dashboard"]``.
+    link : PageLink, optional
+        The page's link, recorded in the provenance.
+    key : str, optional
+        Tells apart several panels on one page (default: the kind).
+    """
+    key = key or kind
+    token = _result_token(kind, settings, summary)
+    saved = st.session_state.setdefault("saved_run_ids", {})
+    remembered = st.session_state.setdefault("saved_run_labels", {})
+    with st.expander("Save as a run", icon=":material/bookmark_add:"):
+        st.caption("Keeps this result with its inputs and settings in the run store, to open again on the "
+                   "Saved runs page (or with `filmcalc runs show`) without computing it again. There are no "
+                   "accounts: type your name.")
+        with st.form(f"save_run::{key}", border=False, enter_to_submit=False):
+            c1, c2, c3 = st.columns(3)
+            sample = c1.text_input("Sample", remembered.get("sample", ""), max_chars=200, key=f"run_sample::{key}",
+                                   placeholder="e.g. coupon 3")
+            tags = c2.text_input("Tags (separated by commas)", ", ".join(remembered.get("tags", [])),
+                                 key=f"run_tags::{key}", placeholder="e.g. anneal-B, weekly")
+            saved_by = c3.text_input("Saved by", remembered.get("saved_by", ""), max_chars=100,
+                                     key=f"run_saved_by::{key}", placeholder="your name")
+            note = st.text_area("Note", "", max_chars=10_000, key=f"run_note::{key}", height=80)
+            submitted = st.form_submit_button("Save", type="primary", icon=":material/save:")
+        if submitted:
+            try:
+                labels = validate_labels(sample, tags.split(","), note, saved_by)
+                files, names = stored_inputs(inputs)
+                record = dict(provenance or {})
+                if link is not None:
+                    record["dashboard"] = {"page": link.page, "link": link.address()}
+                with st.spinner("Saving…"):
+                    run = run_store().save(kind, inputs=files, outputs=outputs, settings={**settings, "inputs": names},
+                                           summary=summary, provenance=record, **labels)
+            except FilmcalcError as exc:
+                st.error(f"Not saved: {exc}")
+            else:
+                saved[token] = run.id
+                remembered.update(sample=labels["sample"], tags=labels["tags"], saved_by=labels["saved_by"])
+        if token in saved:
+            run_id = saved[token]
+            address = address_of("saved-runs", f"run={run_id}")
+            st.success(f"Saved as run **{run_id}**. [Open it on the Saved runs page]({address}); its link, to "
+                       "share:", icon=":material/check_circle:")
+            st.code(address, language=None)

@@ -16,7 +16,7 @@ from filmcalc.frames import IMAGE_SUFFIXES, VIDEO_SUFFIXES, open_frames
 from filmcalc.links import UPLOAD
 from filmcalc.sequence import export_movie, export_tiff_stack, load_series, open_cube, run_sequence
 from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_box, choose_demo_stack, load_or_stop,
-                                stack_picker)
+                                save_run_panel, stack_file_name, stack_picker)
 
 SEQUENCE_DIR = DEMO_DIR / "sequences"
 
@@ -189,8 +189,19 @@ if st.button("Map every frame", type="primary", key="seq_run"):
         st.error(str(exc))
         st.stop()
     bar.empty()
-    st.session_state["seq_result"] = {"key": run_key, "out": str(out), "summary": result.summary(),
-                                      "fit": result.fit}
+    recording = Path(path)
+    st.session_state["seq_result"] = {
+        "key": run_key, "out": str(out), "summary": result.summary(), "fit": result.fit,
+        # what was mapped and how, as `filmcalc sequence … --save` records it, for saving it as a run
+        "input": (("frames", [(f.name, f) for f in sorted(recording.iterdir()) if f.is_file()])
+                  if recording.is_dir() else (recording.name, recording)),
+        "stack": (stack_file_name(origin), text), "stack_name": stack.name,
+        "settings": {"command": "sequence", "frames": frames_text or None, "fps": fps or None,
+                     "anchor": ["{:d},{:d},{:g}".format(*anchor)] if use_anchor else None, "range": f"{lo:g}:{hi:g}",
+                     "point": ["{:d},{:d}".format(*point)], "region": None, "line": "{:d},{:d},{:d},{:d}".format(*line),
+                     "pixel_size": pixel or None, "chunk": None,
+                     "scheduler": "serial" if where == "this process" else "local", "workers": int(workers),
+                     "export": None}}
 
 stored = st.session_state.get("seq_result")
 if not stored:
@@ -288,5 +299,28 @@ with tabs[4]:
         c2.download_button("Movie (GIF)", (out / "thickness.gif").read_bytes(), "thickness.gif", key="seq_dl_gif")
     st.caption("The full cube (cube.zarr, readable with dask.array.from_zarr) is written by the command "
                "`filmcalc sequence`; see the README.")
+
+# Saved as `filmcalc sequence … --save` saves it (the same output names), so either opens the other's runs.
+if stored["key"] == run_key and "settings" in stored:
+    law_fit, rupture_at = summary["thinning_law"] or {}, summary["rupture"] or {}
+    mean_series = np.asarray(series["mean_nm"], float)
+    first_mean = mean_series[np.isfinite(mean_series)]
+    try:
+        provenance = json.loads((out / "provenance.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        provenance = {}
+    save_run_panel(
+        "sequence", inputs={"input": stored["input"], "stack": stored["stack"]},
+        outputs={"cube.zarr.zip": out / "cube.zarr", "series.csv": out / "series.csv",
+                 "summary.json": json.dumps({**summary, "exports": []}, indent=1)},
+        settings=stored["settings"],
+        summary={"stack": stored["stack_name"], "frames_selected": summary["frames_selected"],
+                 "frames_mapped": summary["frames_mapped"], "frames_skipped": len(summary["frames_skipped"]),
+                 "rupture_frame": rupture_at.get("index"), "rupture_time_s": rupture_at.get("time_s"),
+                 "alpha": law_fit.get("alpha"), "alpha_sigma": law_fit.get("alpha_sigma"), "t0_s": law_fit.get("t0_s"),
+                 "amplitude_nm": law_fit.get("amplitude_nm"),
+                 "mean_nm_first_frame": float(first_mean[0]) if first_mean.size else None,
+                 "seconds": summary["seconds"], "warnings": summary["warnings"]},
+        provenance=provenance, link=link)
 link.publish()
 cautions_box()

@@ -1,7 +1,9 @@
 """Fringes page: a photo under monochromatic (or two-line) light becomes a thickness map or profile."""
 
+import hashlib
 import json
 import tempfile
+import time
 from pathlib import Path
 
 import numpy as np
@@ -15,7 +17,7 @@ from filmcalc.fringes import FLAG_MEANINGS, FLAGS, fringe_images, fringe_map, fr
 from filmcalc.links import UPLOAD
 from filmcalc.thickness import TRENDS
 from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_box, choose_demo_stack, load_or_stop,
-                                pick_grid, picked_pixel, stack_picker)
+                                pick_grid, picked_pixel, save_run_panel, stack_file_name, stack_picker)
 
 FRINGE_DIR = DEMO_DIR / "fringes"
 
@@ -175,22 +177,35 @@ st.plotly_chart(fig, width="stretch", on_select="rerun", selection_mode=("points
 st.caption("Click the photo to set the pixel chosen in the sidebar (drag to zoom in, double-click to zoom out).")
 
 st.caption(f"A map shows its progress while it is computed. {RUN_CANCEL_HINT}")
-if not st.button("Compute the thickness", type="primary", key="fr_run"):
+# The result stays on the page (for downloads and saving) until a setting that defines it changes.
+along = mode == "along a line"
+run_key = (name, photo.sha256, text, base_dir, tuple(chosen_wl), tuple(chosen_ch), mode, lo, hi, use_anchor,
+           tuple(anchor), trend, tuple(line) if along else None, direction if along else None)
+if st.button("Compute the thickness", type="primary", key="fr_run"):
+    started = time.perf_counter()
+    try:
+        if along:
+            computed = line_profile_thickness(images[0], tuple(int(v) for v in line), chosen_wl[0], stack, anchor[2],
+                                              direction, encoded=not photo.linear)
+        else:
+            bar = st.progress(0.0, "starting")
+            computed = fringe_map(images, stack, chosen_wl, anchor=tuple(anchor) if use_anchor else None,
+                                  trend=None if trend == "not known" else trend, range_nm=(lo, hi),
+                                  encoded=not photo.linear, progress=lambda f, m: bar.progress(min(f, 1.0), m))
+            bar.empty()
+    except FilmcalcError as exc:
+        st.error(str(exc))
+        st.stop()
+    st.session_state["fr_result"] = {"key": run_key, "result": computed,
+                                     "seconds": round(time.perf_counter() - started, 3)}
+kept = st.session_state.get("fr_result")
+if not kept or kept["key"] != run_key:
     cautions_box()
     st.stop()
-try:
-    if mode == "along a line":
-        profile = line_profile_thickness(images[0], tuple(int(v) for v in line), chosen_wl[0], stack, anchor[2],
-                                         direction, encoded=not photo.linear)
-    else:
-        bar = st.progress(0.0, "starting")
-        result = fringe_map(images, stack, chosen_wl, anchor=tuple(anchor) if use_anchor else None,
-                            trend=None if trend == "not known" else trend, range_nm=(lo, hi),
-                            encoded=not photo.linear, progress=lambda f, m: bar.progress(min(f, 1.0), m))
-        bar.empty()
-except FilmcalcError as exc:
-    st.error(str(exc))
-    st.stop()
+if along:
+    profile = kept["result"]
+else:
+    result = kept["result"]
 
 if mode == "along a line":
     for w in profile.warnings:
@@ -249,4 +264,37 @@ else:
         cols = st.columns(4)
         for col, (ext, blob) in zip(cols, files.items()):
             col.download_button(ext[1:].upper(), blob, stem + ext, key=f"fr_dl{ext}")
+
+# Saved as `filmcalc fringes … --save` saves it (the same output names), so either opens the other's runs.
+record = {"photo": {"file": name, "sha256": photo.sha256, "width": W, "height": H},
+          "stack": {"file": stack_file_name(origin), "name": stack.name,
+                    "sha256": hashlib.sha256(text.encode("utf-8")).hexdigest()},
+          "settings": {"wavelengths_nm": chosen_wl, "channels": chosen_ch,
+                       "anchor": [int(anchor[0]), int(anchor[1]), anchor[2]] if (use_anchor or along) else None,
+                       "trend": None if trend == "not known" else trend, "range_nm": [lo, hi]}}
+settings = {"command": "fringes", "wavelength": chosen_wl, "channel": chosen_ch,
+            "anchor": "{:g},{:g},{:g}".format(*anchor) if (use_anchor or along) else None,
+            "trend": None if trend == "not known" else trend, "line": None, "direction": "thicker",
+            "range": f"{lo:g}:{hi:g}"}
+if along:
+    settings.update(line=",".join(str(int(v)) for v in line), direction=direction)
+    record["settings"].update(line=[int(v) for v in line], direction=direction)
+    record.update(period_nm=profile.period_nm, extrema=len(profile.extrema_px),
+                  thickness_end_nm=float(profile.thickness_nm[-1]), warnings=profile.warnings, seconds=kept["seconds"])
+    outputs = {"distance_px.npy": profile.distance_px, "thickness_nm.npy": profile.thickness_nm,
+               "sigma_nm.npy": profile.sigma_nm, "intensity.npy": profile.intensity,
+               "extrema_px.npy": np.asarray(profile.extrema_px, float),
+               "extrema_nm.npy": np.asarray(profile.extrema_nm, float)}
+    summary = {"stack": stack.name, "photo": name, "mode": "line", "period_nm": profile.period_nm,
+               "extrema": len(profile.extrema_px), "thickness_start_nm": float(profile.thickness_nm[0]),
+               "thickness_end_nm": float(profile.thickness_nm[-1]), "seconds": kept["seconds"]}
+else:
+    flag_counts = {k: int(np.count_nonzero(result.flags & v)) for k, v in FLAGS.items()}
+    record.update(period_nm=list(result.period_nm), statistics=result.statistics, flags=flag_counts,
+                  warnings=result.warnings, seconds=kept["seconds"])
+    outputs = {"thickness_nm.npy": result.thickness_nm, "sigma_nm.npy": result.sigma_nm, "flags.npy": result.flags}
+    summary = {"stack": stack.name, "photo": name, "mode": "map", **result.statistics,
+               "period_nm": list(result.period_nm), "flags": flag_counts, "seconds": kept["seconds"]}
+save_run_panel("fringes", inputs={"photo": (name, data), "stack": (stack_file_name(origin), text)}, outputs=outputs,
+               settings=settings, summary=summary, provenance=record, link=link)
 cautions_box()

@@ -1,5 +1,6 @@
 """Photo → thickness page: a photo of interference colours becomes a calibrated thickness map."""
 
+import hashlib
 import json
 import tempfile
 from pathlib import Path
@@ -15,7 +16,8 @@ from filmcalc.links import UPLOAD
 from filmcalc.thickness import (FLAG_MEANINGS, FLAGS, TRENDS, CameraModel, build_lookup, lab_of_encoded, line_profile,
                                 thickness_map)
 from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_box, choose_demo_stack, load_or_stop,
-                                pick_grid, picked_pixel, picked_rectangle, stack_picker)
+                                pick_grid, picked_pixel, picked_rectangle, save_run_panel, stack_file_name,
+                                stack_picker)
 
 PHOTO_DIR = DEMO_DIR / "photos"
 
@@ -194,7 +196,12 @@ if st.button("Compute the thickness map", type="primary", key="photo_run"):
         bar.empty()
         st.session_state["photo_result"] = {"result": result, "photo": photo_name, "stack": stack.name,
                                             "settings": {"range_nm": [lo, hi], "anchors": anchors, "reference": ref,
-                                                         "trend": trend, "pixel_size_um": pixel or None}}
+                                                         "trend": trend, "pixel_size_um": pixel or None},
+                                            # what was mapped, for saving it as a run
+                                            "photo_data": data, "photo_sha256": photo.sha256,
+                                            "bit_depth": photo.bit_depth, "stack_text": text,
+                                            "stack_file": stack_file_name(origin), "light": stack.light.source,
+                                            "angle_deg": stack.light.angle_deg}
     except FilmcalcError as exc:
         st.error(str(exc))
 
@@ -284,5 +291,29 @@ with tabs[6]:
         col.download_button(ext[1:].upper(), blob, stem + ext, key=f"dl{ext}")
     st.caption("TIFF: float32 nm, opens in ImageJ/Fiji with unit and pixel size; CSV: x, y, thickness, σ, flags, "
                "residual; JSON: the provenance record (photo hash, stack, settings, calibration, statistics).")
+
+# Saved as `filmcalc map … --save` saves it: the same output names and settings, so either opens the other's runs.
+used = saved["settings"]
+flag_counts = {k: int(np.count_nonzero(result.flags & v)) for k, v in FLAGS.items()}
+stack_text = saved.get("stack_text", text)
+stack_file = saved.get("stack_file", stack_file_name(origin))
+provenance = {
+    "photo": {"file": photo_name, "sha256": saved.get("photo_sha256", photo.sha256), "width": W, "height": H,
+              "bit_depth": saved.get("bit_depth", photo.bit_depth)},
+    "stack": {"file": stack_file, "sha256": hashlib.sha256(stack_text.encode("utf-8")).hexdigest(),
+              "name": saved["stack"], "light": saved.get("light"), "angle_deg": saved.get("angle_deg")},
+    "settings": used, "calibration": result.calibration, "statistics": stats, "flags": flag_counts,
+    "warnings": result.warnings, "seconds": round(result.seconds, 3)}
+save_run_panel(
+    "map", inputs={"photo": (photo_name, saved.get("photo_data", data)), "stack": (stack_file, stack_text)},
+    outputs={"thickness_nm.npy": result.thickness_nm, "sigma_nm.npy": result.sigma_nm, "flags.npy": result.flags,
+             "residual_dE.npy": result.residual_dE},
+    settings={"command": "map", "range": "{:g}:{:g}".format(*used["range_nm"]),
+              "anchor": [f"{x},{y},{nm:g}" for x, y, nm in used["anchors"]] or None,
+              "reference": ",".join(f"{v:g}" for v in used["reference"]) if used["reference"] else None,
+              "trend": None if used["trend"] == "not known" else used["trend"], "pixel_size": used["pixel_size_um"]},
+    summary={"stack": saved["stack"], "photo": photo_name, **stats, "flags": flag_counts,
+             "calibration_method": result.calibration.get("method"), "seconds": provenance["seconds"]},
+    provenance=provenance, link=link)
 link.publish()
 cautions_box()

@@ -9,7 +9,8 @@ from filmcalc.charts import fit_landscape_figure, spectrum_fit_figure
 from filmcalc.errors import FilmcalcError
 from filmcalc.links import UPLOAD
 from filmcalc.spectra import fit_spectrum, read_spectrum
-from filmcalc.ui.common import DEMO_DIR, PageLink, cautions_box, choose_demo_stack, load_or_stop, stack_picker
+from filmcalc.ui.common import (DEMO_DIR, PageLink, cautions_box, choose_demo_stack, load_or_stop, save_run_panel,
+                                stack_file_name, stack_picker)
 
 SPECTRA_DIR = DEMO_DIR / "spectra"
 # Demo spectrum → the demo stack it was measured on, and the range to search.
@@ -122,4 +123,12 @@ with right:
     table = "wavelength_nm,data,model\n" + "\n".join(f"{w:.3f},{d:.6f},{m:.6f}"
                                                     for w, d, m in zip(fit.wavelength_nm, fit.data, fit.model))
     st.download_button("Data and model (CSV)", table, f"{name.rsplit('.', 1)[0]}-fit.csv", key="spec_dl_csv")
+# Saved as `filmcalc fit … --save` saves it (the same output names), so either opens the other's runs.
+save_run_panel(
+    "fit", inputs={"spectrum": (name, data), "stack": (stack_file_name(origin), text)},
+    outputs={"wavelength_nm.npy": fit.wavelength_nm, "data.npy": fit.data, "model.npy": fit.model,
+             "landscape_nm.npy": fit.landscape_nm, "landscape_chi2.npy": fit.landscape_chi2},
+    settings={"command": "fit", "range": f"{lo:g}:{hi:g}", "fit": what, "window": f"{window[0]:g}:{window[1]:g}",
+              "reference": "silicon", "baseline": baseline, "scale": scale},
+    summary={"spectrum": spectrum.name, "stack": stack.name, "notes": spectrum.notes, **fit.summary()}, link=link)
 cautions_box()

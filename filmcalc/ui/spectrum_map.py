@@ -4,6 +4,7 @@ import hashlib
 import io
 from pathlib import Path
 
+import numpy as np
 import streamlit as st
 
 from filmcalc.charts import spectrum_map_figure, spectrum_map_figure_image
@@ -11,7 +12,7 @@ from filmcalc.errors import FilmcalcError
 from filmcalc.links import UPLOAD
 from filmcalc.spectra import fit_map, read_spectrum_map
 from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_box, choose_demo_stack, load_or_stop,
-                                stack_picker)
+                                save_run_panel, stack_file_name, stack_picker)
 
 DEMOS = {"wafer-map.csv": "oxide-coupon.toml"}
 
@@ -107,4 +108,15 @@ spectrum_map_figure_image(result, f"{stack.name}: {name}", png, unit=unit)
 c1, c2 = st.columns(2)
 c1.download_button("Points (CSV)", table, name.rsplit(".", 1)[0] + "-thickness.csv", key="smap_dl_csv")
 c2.download_button("Map (PNG)", png.getvalue(), name.rsplit(".", 1)[0] + "-thickness.png", key="smap_dl_png")
+# Saved as `filmcalc fit-map … --save` saves it (the same output names), so either opens the other's runs.
+save_run_panel(
+    "fit-map", inputs={"input": (name, data), "stack": (stack_file_name(origin), text)},
+    outputs={"x.npy": result.x, "y.npy": result.y, "thickness_nm.npy": result.thickness_nm,
+             "sigma_nm.npy": result.sigma_nm, "reduced_chi2.npy": result.reduced_chi2,
+             "ambiguous.npy": np.asarray(result.ambiguous, bool)},
+    settings={"command": "fit-map", "range": f"{lo:g}:{hi:g}", "window": None, "baseline": baseline, "scale": "auto",
+              "position_unit": unit},
+    summary={"input": smap.name, "stack": stack.name, "points": int(result.x.size), "statistics": result.statistics,
+             "ambiguous_points": int(result.ambiguous.sum()), "notes": smap.notes, "warnings": result.warnings,
+             "seconds": round(result.seconds, 3)}, link=link)
 cautions_box()

@@ -21,6 +21,8 @@ PAGES = {
                 "a photo under one or two lines of light gives thickness along a line or over the image"),
     "film-over-time": ("filmcalc/ui/film_sequence.py", ":material/movie:", "Film over time",
                        "a recording becomes thickness over time, a thinning law and the rupture"),
+    "saved-runs": ("filmcalc/ui/saved_runs.py", ":material/bookmarks:", "Saved runs",
+                   "open a saved analysis again, compare runs, follow a sample over time"),
     "stack-builder": ("filmcalc/ui/stack_builder.py", ":material/layers:", "Stack builder",
                       "describe your own sample (materials, layers, light) and save its stack file"),
     "cautions": ("filmcalc/ui/safety.py", ":material/health_and_safety:", "Cautions",
