@@ -226,7 +226,7 @@ class PageLink:
         with self._box.container():
             st.caption(":material/link: **Link to this view**: copy it with the button at its right to share "
                        "these settings.")
-            st.code(page_address(self.page, links.query_string(encoded)), language=None)
+            st.code(page_address(self.page, links.query_string(encoded)), language=None, wrap_lines=True)
             if self._notes:
                 st.caption(" ".join(self._notes))
 

@@ -162,7 +162,7 @@ try:
                                  name="point", hoverinfo="skip"))
     preview.add_trace(go.Scatter(x=[line[0], line[2]], y=[line[1], line[3]], mode="lines", name="line",
                                  line={"color": "#00c8ff", "width": 2}, hoverinfo="skip"))
-    preview.update_layout(height=320, margin={"l": 0, "r": 0, "t": 10, "b": 0}, showlegend=False,
+    preview.update_layout(height=320, margin={"l": 50, "r": 0, "t": 10, "b": 40}, showlegend=False,
                           xaxis={"showgrid": False, "title": "x (px)"},
                           yaxis={"showgrid": False, "scaleanchor": "x", "title": "y (px)"})
     st.plotly_chart(preview, width="stretch")

@@ -170,9 +170,9 @@ if use_anchor:
 if mode == "along a line":
     fig.add_trace(go.Scatter(x=[line[0], line[2]], y=[line[1], line[3]], mode="lines+markers",
                              line={"color": "#00c8ff", "width": 2}, showlegend=False, hoverinfo="skip"))
-fig.update_layout(height=380, margin={"l": 0, "r": 0, "t": 10, "b": 0}, dragmode="zoom",
-                  xaxis={"range": [-0.5, W - 0.5], "showgrid": False},
-                  yaxis={"range": [H - 0.5, -0.5], "showgrid": False, "scaleanchor": "x"})
+fig.update_layout(height=380, margin={"l": 50, "r": 0, "t": 10, "b": 40}, dragmode="zoom",
+                  xaxis={"range": [-0.5, W - 0.5], "showgrid": False, "title": "x (px)"},
+                  yaxis={"range": [H - 0.5, -0.5], "showgrid": False, "scaleanchor": "x", "title": "y (px)"})
 st.plotly_chart(fig, width="stretch", on_select="rerun", selection_mode=("points",), key=pick_key)
 st.caption("Click the photo to set the pixel chosen in the sidebar (drag to zoom in, double-click to zoom out).")
 

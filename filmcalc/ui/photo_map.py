@@ -19,6 +19,24 @@ from filmcalc.ui.common import (DEMO_DIR, RUN_CANCEL_HINT, PageLink, cautions_bo
                                 pick_grid, picked_pixel, picked_rectangle, save_run_panel, stack_file_name,
                                 stack_picker)
 
+
+def _empty_anchors():
+    """An empty anchors table that still shows its three columns (an empty list would show none)."""
+    import pandas as pd
+
+    return pd.DataFrame({"x": pd.Series(dtype="Int64"), "y": pd.Series(dtype="Int64"),
+                         "thickness (nm)": pd.Series(dtype="float64")})
+
+
+def _rows(table):
+    """The anchors table as a list of row dicts (None where a cell is empty), whatever the editor returned."""
+    if isinstance(table, list):
+        return table
+    import pandas as pd
+
+    return [{k: (None if pd.isna(v) else v) for k, v in row.items()} for row in table.to_dict("records")]
+
+
 PHOTO_DIR = DEMO_DIR / "photos"
 
 st.title("Thickness from a photo")
@@ -135,10 +153,11 @@ with st.sidebar:
     st.caption("Anchors: pixels of known thickness (x, y in pixels; thickness in nm). Click the photo to add one "
                "with the thickness below, or edit the table.")
     st.number_input("Thickness at the next clicked pixel (nm)", 0.0, 50000.0, 0.0, 1.0, key=f"next_nm::{photo_name}")
-    anchors_rows = st.data_editor(st.session_state[anchor_key], num_rows="dynamic",
-                                  key=f"anchors::{photo_name}::{st.session_state[version_key]}",
-                                  column_config={"x": st.column_config.NumberColumn(min_value=0, step=1),
-                                                 "y": st.column_config.NumberColumn(min_value=0, step=1)})
+    anchors_rows = _rows(st.data_editor(st.session_state[anchor_key] or _empty_anchors(), num_rows="dynamic",
+                                        key=f"anchors::{photo_name}::{st.session_state[version_key]}",
+                                        column_config={"x": st.column_config.NumberColumn("x (px)", min_value=0, step=1),
+                                                       "y": st.column_config.NumberColumn("y (px)", min_value=0, step=1),
+                                                       "thickness (nm)": st.column_config.NumberColumn(min_value=0.0)}))
     st.session_state[anchor_key + "_shown"] = anchors_rows  # edits included: what a click adds to
     link.keep("anchor", [(round(r["x"]), round(r["y"]), float(r["thickness (nm)"])) for r in anchors_rows
                          if all(r.get(c) is not None for c in ("x", "y", "thickness (nm)"))])
@@ -151,11 +170,11 @@ with st.sidebar:
     reference = None
     if use_ref:
         r = ref_default or [0, 0, min(20, W - 1), min(20, H - 1), 0.0]
-        cols = st.columns(5)
-        labels = ["x0", "y0", "x1", "y1", "nm"]
+        labels = ["x0 (px)", "y0 (px)", "x1 (px)", "y1 (px)", "known thickness (nm)"]
         for i in range(5):
             st.session_state.setdefault(f"ref{i}::{photo_name}", float(r[i]))
-        reference = [cols[i].number_input(labels[i], key=f"ref{i}::{photo_name}", persist_state="session")
+        places = [*st.columns(2), *st.columns(2), st.container()]  # two corners, then the thickness
+        reference = [places[i].number_input(labels[i], key=f"ref{i}::{photo_name}", persist_state="session")
                      for i in range(5)]
 # The profile line is drawn with the result; a link's line waits in session state until then.
 link.attach("line", tuple(f"line{i}::{photo_name}" for i in range(4)), fits=on_photo,
@@ -175,9 +194,9 @@ for row in anchors_rows:
 if reference:
     x0, y0, x1, y1, _ = reference
     fig.add_shape(type="rect", x0=x0, y0=y0, x1=x1, y1=y1, line={"color": "white", "dash": "dot"})
-fig.update_layout(height=380, margin={"l": 0, "r": 0, "t": 10, "b": 0}, title=None, dragmode="zoom",
-                  xaxis={"range": [-0.5, W - 0.5], "showgrid": False},
-                  yaxis={"range": [H - 0.5, -0.5], "showgrid": False, "scaleanchor": "x"})
+fig.update_layout(height=380, margin={"l": 50, "r": 0, "t": 10, "b": 40}, title=None, dragmode="zoom",
+                  xaxis={"range": [-0.5, W - 0.5], "showgrid": False, "title": "x (px)"},
+                  yaxis={"range": [H - 0.5, -0.5], "showgrid": False, "scaleanchor": "x", "title": "y (px)"})
 st.plotly_chart(fig, width="stretch", on_select="rerun", selection_mode=("points", "box"), key=pick_key)
 st.caption("Click the photo to add an anchor there (drag to zoom in first, double-click to zoom out). To set the "
            "reference region, pick the box-select tool (dotted square, top right) and drag a box.")

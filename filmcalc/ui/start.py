@@ -43,15 +43,17 @@ st.write(
 st.subheader("Try a demo")
 st.caption("Each demo opens its page with an invented sample and its settings already chosen; the address it "
            "opens is a link you can share like any other.")
-columns = st.columns(2)
-for i, scenario in enumerate(DEMO_SCENARIOS):
-    file, icon, _, _ = PAGES[scenario.page]
-    with columns[i % 2].container(border=True):
-        st.page_link(file, label=f"**{scenario.title}**", icon=icon, query_params=scenario.query)
-        st.caption(scenario.text)
+for first in range(0, len(DEMO_SCENARIOS), 2):  # row by row, so a narrow window keeps the order
+    for column, scenario in zip(st.columns(2), DEMO_SCENARIOS[first:first + 2]):
+        file, icon, _, _ = PAGES[scenario.page]
+        with column.container(border=True):
+            st.page_link(file, label=f"**{scenario.title}**", icon=icon, query_params=scenario.query)
+            st.caption(scenario.text)
 
 st.subheader("Or start from your own data")
 for file, icon, title, purpose in PAGES.values():
-    st.page_link(file, label=f"**{title}**: {purpose}", icon=icon)
+    # The page's name as the link, what it does beneath (a long link label would not wrap).
+    st.page_link(file, label=f"**{title}**", icon=icon)
+    st.caption(purpose)
 link.publish()
 cautions_box()
