@@ -445,3 +445,46 @@ def test_a_run_link_opens_the_same_result_in_a_second_session(browser, dashboard
         finally:
             context.close()
     assert seen[0] == seen[1]  # the same result in both sessions
+
+
+# A crafted bad file for every page that takes an upload (see tests/fuzz_corpus/README.md), opened in its
+# upload mode through the page's link.
+BAD_UPLOADS = [
+    ("photo-map?photo=upload", "png_bomb_header.png"),
+    ("photo-map?photo=upload", "png_truncated.png"),
+    ("fringes?photo=upload", "tiff_bad_strip_offset.tif"),
+    ("spectrum-fit?spectrum=upload", "spec_binary.csv"),
+    ("spectrum-map?run=upload", "map_no_header.csv"),
+    ("film-over-time?recording=upload", "video_random.mp4"),
+]
+
+
+def test_bad_uploads_show_a_message_not_a_traceback(browser, dashboard):
+    """A crafted bad file uploaded on each page gives an error message on the page, never an exception box,
+    and the page keeps working (its title and the sidebar stay)."""
+    corpus = ROOT / "tests" / "fuzz_corpus"
+    context = browser.new_context(viewport={"width": 1280, "height": 800})
+    try:
+        for path, name in BAD_UPLOADS:
+            page = open_page(context, f"{dashboard}/{path}")
+            page.locator('[data-testid="stMain"] [data-testid="stFileUploader"] input[type="file"]').first \
+                .set_input_files(corpus / name)
+            settle(page)
+            page.screenshot(path=str(ARTIFACTS / f"bad-upload_{name}.png"))
+            page.wait_for_selector('[data-testid="stAlertContentError"]', timeout=30_000)
+            assert page.locator(EXCEPTION).count() == 0, (path, name, page.locator(EXCEPTION).first.inner_text())
+            message = page.locator('[data-testid="stAlertContentError"]').first.inner_text()
+            assert "Traceback" not in message and len(message) > 10, (path, name, message)
+            assert page.locator('[data-testid="stSidebar"]').count() == 1
+            page.close()
+        # A broken stack file uploaded in the sidebar: a message naming the file, no exception.
+        page = open_page(context, f"{dashboard}/film-spectrum")
+        page.locator('[data-testid="stSidebar"] [data-testid="stFileUploader"] input[type="file"]').first \
+            .set_input_files(corpus / "stack_bad_syntax.toml")
+        settle(page)
+        page.screenshot(path=str(ARTIFACTS / "bad-upload_stack_bad_syntax.toml.png"))
+        page.wait_for_selector('[data-testid="stAlertContentError"]', timeout=30_000)
+        assert page.locator(EXCEPTION).count() == 0
+        assert "stack_bad_syntax.toml" in page.locator('[data-testid="stAlertContentError"]').first.inner_text()
+    finally:
+        context.close()

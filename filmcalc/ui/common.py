@@ -81,6 +81,8 @@ def stack_picker(link=None):
     if link is not None and "sample" in link.given():
         st.session_state["stack_choice"] = st.session_state["stack_choice_saved"] = link.given()["sample"]
     saved = st.session_state.get("stack_choice_saved", options[0])
+    if st.session_state.get("stack_choice_pending") in options:  # a stack file just uploaded: select it
+        st.session_state["stack_choice"] = st.session_state.pop("stack_choice_pending")
     with st.sidebar:
         st.header("Stack")
         if st.session_state.get("stack_choice") not in options:
@@ -92,6 +94,7 @@ def stack_picker(link=None):
     if upload is not None and (not uploaded or uploaded[0] != upload.name):
         st.session_state["uploaded_stack"] = (upload.name, upload.getvalue().decode("utf-8", errors="replace"))
         st.session_state["stack_choice_saved"] = UPLOAD_CHOICE_PREFIX + upload.name
+        st.session_state["stack_choice_pending"] = UPLOAD_CHOICE_PREFIX + upload.name
         st.rerun()
     if link is not None:
         link.keep("sample", choice if choice in demos else None)
