@@ -691,6 +691,11 @@ def _save_run(args, kind, *, inputs, outputs=None, summary=None, provenance=None
 
 # ----------------------------------------------------------------------------- filmcalc runs ...
 
+def _count(n, word):
+    """'1 run', '2 runs'."""
+    return f"{n} {word}" + ("" if n == 1 else "s")
+
+
 def _size_text(size):
     for unit, factor in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
         if size >= factor:
@@ -789,7 +794,7 @@ def _runs_check(args):
     if args.json:
         print(json.dumps(report.to_dict(), indent=1))
         return 0 if report.ok else 1
-    print(f"{where}: {report.runs} runs, {report.files} stored files ({_size_text(report.bytes)}), "
+    print(f"{where}: {_count(report.runs, 'run')}, {_count(report.files, 'stored file')} ({_size_text(report.bytes)}), "
           + ("SHA-256 of every file verified" if report.hashes_verified else "sizes checked (--quick)"))
     for o in report.orphans:
         print(f"orphan: files/{o['sha256'][:2]}/{o['sha256']} ({_size_text(o['size'])}) belongs to no run")
