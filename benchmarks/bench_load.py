@@ -251,7 +251,14 @@ async def one_round(context, base, photo, timeout_s):
     except RoundFailed:
         raise
     except Exception as exc:  # noqa: BLE001 - a Playwright timeout or a closed page: one failed round
-        raise RoundFailed(f"{type(exc).__name__}: {str(exc).splitlines()[0][:300]}") from exc
+        shot = ROOT / "test-artifacts" / f"bench_load-failed-{id(page)}.png"
+        try:  # what the page showed, for a person to look at
+            shot.parent.mkdir(parents=True, exist_ok=True)
+            await page.screenshot(path=str(shot))
+        except Exception:  # noqa: BLE001 - the page may be gone
+            shot = None
+        raise RoundFailed(f"{type(exc).__name__}: {str(exc).splitlines()[0][:300]}"
+                          + (f" (page: {page.url}; screenshot {shot.relative_to(ROOT)})" if shot else "")) from exc
     finally:
         await page.close()
 
