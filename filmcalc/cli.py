@@ -587,18 +587,6 @@ def _first_finite(values):
     return float(finite[0]) if finite.size else None
 
 
-def _unique(name, taken):
-    """``name``, or ``stem-2.suffix`` and so on when the run already has a file of that name."""
-    if name not in taken:
-        return name
-    stem, dot, suffix = name.rpartition(".")
-    stem, suffix = (stem, "." + suffix) if dot and stem else (name, "")
-    k = 2
-    while f"{stem}-{k}{suffix}" in taken:
-        k += 1
-    return f"{stem}-{k}{suffix}"
-
-
 def _folder_files(folder, limit_depth=3):
     """Regular, non-hidden files under a folder (at most ``limit_depth`` levels), sorted."""
     folder = Path(folder)
@@ -616,7 +604,7 @@ def _gather_inputs(roles):
     A file keeps its own (cleaned) name; the files of a folder, or a list of frame files, are stored as
     ``FOLDER/NAME``.
     """
-    from .runs import safe_name
+    from .runs import safe_name, unique_name
 
     files, names = {}, {}
     for role, value in roles.items():
@@ -631,13 +619,13 @@ def _gather_inputs(roles):
                 folder = Path(value)
                 members = _folder_files(folder)
                 relative = [m.relative_to(folder) for m in members]
-            prefix = _unique(safe_name(folder.resolve().name, role), {n.split("/")[0] for n in files})
+            prefix = unique_name(safe_name(folder.resolve().name, role), {n.split("/")[0] for n in files})
             for member, rel in zip(members, relative):
                 name = "/".join([prefix] + [safe_name(part) for part in rel.parts])
-                files[_unique(name, files)] = member
+                files[unique_name(name, files)] = member
             names[role] = prefix
         else:
-            name = _unique(safe_name(value, role), files)
+            name = unique_name(safe_name(value, role), files)
             files[name] = Path(value)
             names[role] = name
     return files, names

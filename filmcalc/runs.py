@@ -238,6 +238,19 @@ def validate_name(name):
     return name
 
 
+def unique_name(name, taken):
+    """``name``, or ``stem-2.suffix``, ``stem-3.suffix``… when ``taken`` (a set or dict of stored names)
+    has it already: two inputs with the same file name keep both."""
+    if name not in taken:
+        return name
+    stem, dot, suffix = name.rpartition(".")
+    stem, suffix = (stem, "." + suffix) if dot and stem else (name, "")
+    k = 2
+    while f"{stem}-{k}{suffix}" in taken:
+        k += 1
+    return f"{stem}-{k}{suffix}"
+
+
 def safe_name(filename, fallback="file"):
     """A valid one-segment name made from a file name as the user had it.
 

@@ -15,7 +15,7 @@ from filmcalc import links
 from filmcalc.appearance import film_colours
 from filmcalc.errors import FilmcalcError
 from filmcalc.optics import reflectance_sweep, stack_reflectance
-from filmcalc.runs import DATABASE_URL_ENV, RunStore, resolve_data_dir, safe_name, validate_labels
+from filmcalc.runs import DATABASE_URL_ENV, RunStore, resolve_data_dir, safe_name, unique_name, validate_labels
 from filmcalc.stack import load_stack, loads_stack
 
 DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
@@ -448,27 +448,17 @@ def stored_inputs(roles):
     """
     files, names = {}, {}
 
-    def unique(name, taken):
-        if name not in taken:
-            return name
-        stem, dot, suffix = name.rpartition(".")
-        stem, suffix = (stem, "." + suffix) if dot and stem else (name, "")
-        k = 2
-        while f"{stem}-{k}{suffix}" in taken:
-            k += 1
-        return f"{stem}-{k}{suffix}"
-
     for role, value in roles.items():
         if value is None:
             continue
         name, content = value
         if isinstance(content, list):
-            prefix = unique(safe_name(name, role), {n.split("/")[0] for n in files})
+            prefix = unique_name(safe_name(name, role), {n.split("/")[0] for n in files})
             for member, data in content:
-                files[unique(f"{prefix}/{safe_name(member)}", files)] = data
+                files[unique_name(f"{prefix}/{safe_name(member)}", files)] = data
             names[role] = prefix
         else:
-            stored = unique(safe_name(name, role), files)
+            stored = unique_name(safe_name(name, role), files)
             files[stored] = Path(content) if isinstance(content, os.PathLike) else content
             names[role] = stored
     return files, names
