@@ -197,16 +197,19 @@ async def settle(page, timeout_s, quiet_s=0.75):
 
 
 async def choose(page, label, option, timeout_s):
+    """Pick ``option`` in a selectbox by typing it and pressing Enter, as a keyboard user would.
+
+    (Clicking the option in the list failed now and then: a box low in the sidebar opens its list
+    below the window's edge, where the click waits out its timeout.)"""
     box = page.get_by_role("combobox", name=label)
+    await box.scroll_into_view_if_needed()
     await box.click()
-    item = page.get_by_role("option", name=option, exact=True)
-    try:
-        await item.wait_for(timeout=1_000)
-    except Exception:  # noqa: BLE001 - the first click sometimes only focuses the box
-        await box.press("ArrowDown")
-        await item.wait_for(timeout=10_000)
-    await item.click()
+    await box.fill(option)
+    await page.get_by_role("option", name=option, exact=True).wait_for(timeout=10_000)
+    await box.press("Enter")
     await settle(page, timeout_s)
+    if await box.input_value() != option:
+        raise RoundFailed(f"{label!r} shows {await box.input_value()!r}, not {option!r}")
 
 
 def demo_photos():

@@ -202,15 +202,14 @@ def page_not_found(page):
 
 def choose(page, label, option):
     """Pick ``option`` in the selectbox labelled ``label``; returns what the box shows afterwards."""
+    # Typed and confirmed with Enter, as a keyboard user would: clicking the option failed now and
+    # then, when a box low in the sidebar opened its list below the window's edge.
     box = page.get_by_role("combobox", name=label)
+    box.scroll_into_view_if_needed()
     box.click()
-    item = page.get_by_role("option", name=option, exact=True)
-    try:
-        item.wait_for(timeout=1_000)
-    except Exception:  # noqa: BLE001 - the first click sometimes only focuses the box
-        box.press("ArrowDown")
-        item.wait_for(timeout=10_000)
-    item.click()
+    box.fill(option)
+    page.get_by_role("option", name=option, exact=True).wait_for(timeout=10_000)
+    box.press("Enter")
     settle(page)
     return box.input_value()
 
