@@ -1,6 +1,5 @@
 """Dashboard pages driven headlessly with Streamlit's AppTest."""
 
-import re
 from pathlib import Path
 
 import pytest
@@ -229,12 +228,14 @@ def link_shown(at):
 
 
 def test_every_page_has_the_url_path_links_use():
-    text = (ROOT / "dashboard.py").read_text(encoding="utf-8")
-    url_paths = {url: file for file, url in re.findall(r'st\.Page\("([^"]+)".*?url_path="([^"]+)"', text,
-                                                       flags=re.DOTALL)}
+    from filmcalc.ui.pages import PAGES, START
+
+    url_paths = {url: file for url, (file, *_) in PAGES.items()} | {START[0]: START[1]}
     assert url_paths == PAGE_FILES | {"start": "filmcalc/ui/start.py"}
     assert set(url_paths) == set(LINK_PAGES)  # one list of link parameters per page, by URL path
-    assert 'url_path="start", default=True' in text
+    assert all((ROOT / file).is_file() for file in url_paths.values())
+    text = (ROOT / "dashboard.py").read_text(encoding="utf-8")
+    assert "default=True" in text and "START" in text and "PAGES.items()" in text  # the navigation is the table
 
 
 def test_start_page_explains_and_opens_every_demo():

@@ -4,30 +4,8 @@ import streamlit as st
 
 from filmcalc.links import DEMO_SCENARIOS
 from filmcalc.ui.common import PageLink, cautions_box
+from filmcalc.ui.pages import PAGES
 
-# URL path → page file (relative to dashboard.py) and icon, for the links below; titles as in the navigation.
-PAGES = {
-    "film-spectrum": ("filmcalc/ui/film_spectrum.py", ":material/show_chart:", "Film spectrum",
-                      "reflectance and colour of one film thickness"),
-    "colour-charts": ("filmcalc/ui/colour_charts.py", ":material/palette:", "Colour charts",
-                      "colour over thickness and angle, a chart to print, a colour's candidate thicknesses"),
-    "photo-map": ("filmcalc/ui/photo_map.py", ":material/image:", "Thickness from a photo",
-                  "a photo of interference colours becomes a thickness map with uncertainty and flags"),
-    "spectrum-fit": ("filmcalc/ui/spectrum_fit.py", ":material/ssid_chart:", "Spectrum fit",
-                     "a reflectance spectrum gives the thickness ± 1σ and any other thickness that fits"),
-    "spectrum-map": ("filmcalc/ui/spectrum_map.py", ":material/grid_on:", "Map of spectra",
-                     "a mapping run of spectra becomes a thickness map with uniformity figures"),
-    "fringes": ("filmcalc/ui/fringe_analysis.py", ":material/waves:", "Fringes",
-                "a photo under one or two lines of light gives thickness along a line or over the image"),
-    "film-over-time": ("filmcalc/ui/film_sequence.py", ":material/movie:", "Film over time",
-                       "a recording becomes thickness over time, a thinning law and the rupture"),
-    "saved-runs": ("filmcalc/ui/saved_runs.py", ":material/bookmarks:", "Saved runs",
-                   "open a saved analysis again, compare runs, follow a sample over time"),
-    "stack-builder": ("filmcalc/ui/stack_builder.py", ":material/layers:", "Stack builder",
-                      "describe your own sample (materials, layers, light) and save its stack file"),
-    "cautions": ("filmcalc/ui/safety.py", ":material/health_and_safety:", "Cautions",
-                 "what the numbers mean, and safety in the lab"),
-}
 
 st.title("filmcalc")
 link = PageLink("start")
