@@ -27,18 +27,13 @@ from __future__ import annotations
 import json
 import os
 import re
-import signal
-import socket
-import subprocess
-import sys
 import time
 import tomllib
-import urllib.error
-import urllib.request
 from pathlib import Path
 
 import numpy as np
 import pytest
+from dashboard_server import free_port, start_server, stop_server
 
 pytestmark = pytest.mark.browser
 
@@ -94,39 +89,6 @@ def browser():
         playwright.stop()
 
 
-def _free_port():
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-def _die_with_parent():
-    """In the child before exec (Linux): SIGTERM when the process that started it dies without stopping it."""
-    try:
-        import ctypes
-        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGTERM)  # 1 = PR_SET_PDEATHSIG
-    except (OSError, AttributeError):  # not Linux: the finally clauses stop the server
-        pass
-
-
-def _stop_group(proc, grace_s=10.0):
-    """Terminate a process started with start_new_session=True, and everything it started."""
-    try:
-        os.killpg(proc.pid, signal.SIGTERM)
-    except ProcessLookupError:  # the whole group has gone already
-        proc.wait()
-        return
-    try:
-        proc.wait(timeout=grace_s)
-    except subprocess.TimeoutExpired:
-        pass
-    try:
-        os.killpg(proc.pid, signal.SIGKILL)  # whatever is left of the group
-    except ProcessLookupError:
-        pass
-    proc.wait(timeout=grace_s)
-
-
 @pytest.fixture(scope="module")
 def dashboard_data(tmp_path_factory):
     """The run store's folder (FILMCALC_DATA) of the dashboard the tests start: this test run's own."""
@@ -137,37 +99,17 @@ def dashboard_data(tmp_path_factory):
 def dashboard(browser, dashboard_data):
     """The dashboard's base URL (http://127.0.0.1:PORT), served by `streamlit run dashboard.py` from this venv."""
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
-    port = _free_port()
+    port = free_port()
     log_path = ARTIFACTS / "streamlit-server.log"
-    cmd = [sys.executable, "-m", "streamlit", "run", "dashboard.py", "--server.headless", "true",
-           "--server.address", "127.0.0.1", "--server.port", str(port), "--browser.gatherUsageStats", "false",
-           "--server.fileWatcherType", "none", "--server.runOnSave", "false"]
-    # An empty FILMCALC_PASSWORD switches the dashboard's shared password off, whatever the secrets file says;
-    # saved runs go to a store of this test run's own, never the user's.
-    env = {**os.environ, "FILMCALC_PASSWORD": "", "FILMCALC_DATA": str(dashboard_data)}
-    env.pop("FILMCALC_DATABASE_URL", None)
-    with open(log_path, "wb") as log:
-        proc = subprocess.Popen(cmd, cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT,
-                                stdin=subprocess.DEVNULL, start_new_session=True, preexec_fn=_die_with_parent)
-    url = f"http://127.0.0.1:{port}"
+    # The server's shared password is off and its saved runs go to a store of this test run's own.
     try:
-        deadline = time.monotonic() + SERVER_START_S
-        while True:
-            if proc.poll() is not None:
-                pytest.fail(f"streamlit exited with status {proc.returncode}:\n{log_path.read_text()[-3000:]}")
-            try:
-                with urllib.request.urlopen(url + "/_stcore/health", timeout=2) as response:
-                    if response.status == 200:
-                        break
-            except (urllib.error.URLError, ConnectionError, TimeoutError):
-                pass
-            if time.monotonic() > deadline:
-                pytest.fail(f"streamlit did not answer {url}/_stcore/health within {SERVER_START_S} s:\n"
-                            f"{log_path.read_text()[-3000:]}")
-            time.sleep(0.25)
-        yield url
+        proc = start_server(port, log_path, dashboard_data, SERVER_START_S)
+    except RuntimeError as exc:
+        pytest.fail(f"{exc}:\n{log_path.read_text()[-3000:]}")
+    try:
+        yield f"http://127.0.0.1:{port}"
     finally:
-        _stop_group(proc)
+        stop_server(proc)
 
 
 # --------------------------------------------------------------------------- helpers
